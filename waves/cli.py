@@ -1,0 +1,175 @@
+"""Command line: `waves SUBCOMMAND ...`.
+
+`main(argv=None) -> int` is testable in-process.  Exit codes: 0 done, 2 usage
+or bad input (one line on stderr, no traceback), 1 internal error.  `--debug`
+re-raises so the traceback is visible.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from typing import Sequence
+
+from waves import __version__
+from waves.errors import WavesError
+
+__all__ = ["main", "build_parser"]
+
+EXIT_OK = 0
+EXIT_INTERNAL = 1
+EXIT_USAGE = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that raises instead of exiting, so usage errors get exit code 2
+    through the same path as every other bad input."""
+
+    def error(self, message: str):  # noqa: D401 - argparse API
+        raise WavesError(f"{self.prog}: {message} (see '{self.prog} --help')")
+
+
+def _add_calibration_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--pixel-size",
+        dest="pixel_size_um",
+        type=float,
+        metavar="UM",
+        help="pixel size in micrometres; overrides or supplies the file's calibration",
+    )
+    p.add_argument(
+        "--frame-interval",
+        dest="frame_interval_s",
+        type=float,
+        metavar="S",
+        help="seconds between frames; overrides or supplies the file's calibration",
+    )
+
+
+def _add_selection_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--channel", type=int, metavar="C", help="channel of a hyperstack to use")
+    p.add_argument("--zslice", type=int, metavar="Z", help="z-slice of a hyperstack to use")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="waves",
+        description="Measure and simulate relayed signalling waves in excitable media.",
+    )
+    parser.add_argument("--version", action="version", version=f"waves {__version__}")
+    parser.add_argument(
+        "--debug", action="store_true", help="show the full traceback of any error"
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    p_info = sub.add_parser(
+        "info", help="print shape, calibration, duration and memory needs of a stack"
+    )
+    p_info.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
+    _add_calibration_options(p_info)
+    _add_selection_options(p_info)
+    p_info.set_defaults(func=_cmd_info)
+
+    from waves import simulate as _simulate
+
+    p_sim = sub.add_parser(
+        "simulate", help="simulate an excitable medium and write a calibrated movie"
+    )
+    _simulate.add_arguments(p_sim)
+    p_sim.set_defaults(func=_simulate.run_from_args)
+    return parser
+
+
+def _human_bytes(n: float) -> str:
+    for unit in ("B", "KiB", "MiB", "GiB", "TiB"):
+        if abs(n) < 1024 or unit == "TiB":
+            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
+        n /= 1024.0
+    raise AssertionError("unreachable")
+
+
+def _cmd_info(args: argparse.Namespace) -> int:
+    from waves import io
+
+    info = io.inspect_stack(
+        args.stack,
+        channel=args.channel,
+        zslice=args.zslice,
+        pixel_size_um=args.pixel_size_um,
+        frame_interval_s=args.frame_interval_s,
+    )
+    t, ny, nx = info.shape_tyx
+    lines = [
+        f"path            {info.path}",
+        f"format          {info.format}"
+        + (f" ({info.compression})" if info.compression not in (None, "none") else ""),
+        f"axes in file    {info.axes}",
+        f"shape (t,y,x)   {t} x {ny} x {nx}",
+        f"dtype           {info.dtype}",
+        f"size on disk    {_human_bytes(info.nbytes)}"
+        + ("  (memory-mapped)" if info.memory_mapped else ""),
+    ]
+    cal = info.calibration
+    if cal is None:
+        lines.append(f"calibration     MISSING: {info.calibration_problem}")
+    else:
+        lines += [
+            f"pixel size      {cal.pixel_size_um:g} um  (from {cal.pixel_size_origin})",
+            f"frame interval  {cal.frame_interval_s:g} s  (from {cal.frame_interval_origin})",
+            f"duration        {t * cal.frame_interval_min:.1f} min "
+            f"({t} frames x {cal.frame_interval_s:g} s)",
+            f"field size      {nx * cal.pixel_size_um / 1000:.2f} mm x "
+            f"{ny * cal.pixel_size_um / 1000:.2f} mm",
+        ]
+    whole = t * ny * nx * 4 * 3  # float32 signal + phase + amplitude, all in memory
+    tile = info.analysis_memory_bytes
+    lines.append(
+        f"analysis memory {_human_bytes(tile)} working set (tiled); "
+        f"{_human_bytes(whole)} if held whole as float32"
+    )
+    for w in info.warnings:
+        lines.append(f"warning         {w}")
+    print("\n".join(lines))
+    return EXIT_OK
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    debug = "--debug" in argv
+    try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if getattr(args, "func", None) is None:
+            parser.print_help()
+            return EXIT_USAGE
+        return int(args.func(args))
+    except SystemExit as exc:  # --help and --version exit through argparse
+        code = exc.code
+        return code if isinstance(code, int) else (0 if code is None else EXIT_USAGE)
+    except KeyboardInterrupt:
+        print("waves: interrupted", file=sys.stderr)
+        return 130
+    except WavesError as exc:
+        if debug:
+            raise
+        message = " ".join(str(exc).split())
+        print(f"waves: error: {message}", file=sys.stderr)
+        return EXIT_USAGE
+    except Exception as exc:  # internal error: say so, keep it to one line
+        if debug:
+            raise
+        print(
+            f"waves: internal error: {type(exc).__name__}: {exc} "
+            "(rerun with --debug for the traceback, and please report it)",
+            file=sys.stderr,
+        )
+        return EXIT_INTERNAL
+
+
+def main_exit() -> None:
+    """Console-script entry point."""
+    sys.exit(main())
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main_exit()
