@@ -1,0 +1,87 @@
+"""Front speed, direction and wavelength against plane and target waves."""
+
+import numpy as np
+import pytest
+
+from waves.measure.speed import (
+    activation_fit_speed,
+    activation_fit_speed_numpy,
+    activation_times,
+    phase_velocity,
+)
+from waves.phase.analytic import analytic_signal, phase_and_amplitude
+
+
+def _plane(nt, ny, nx, *, period, wavelength, angle_deg):
+    # exact plane wave travelling at angle_deg counterclockwise as displayed
+    # (+x right, +y up on screen = decreasing row)
+    t, y, x = np.meshgrid(np.arange(nt), np.arange(ny), np.arange(nx), indexing="ij")
+    a = np.deg2rad(angle_deg)
+    s = x * np.cos(a) - y * np.sin(a)
+    return np.cos(2 * np.pi * (t / period - s / wavelength))
+
+
+@pytest.mark.parametrize("angle_deg", [0.0, 30.0, 135.0, -100.0])
+def test_plane_wave_phase_velocity_exact(angle_deg):
+    period, wavelength = 20.0, 12.0
+    z = analytic_signal(_plane(120, 24, 28, period=period, wavelength=wavelength, angle_deg=angle_deg))
+    pv = phase_velocity(z[20:-20])
+    # exact: speed = wavelength / period
+    np.testing.assert_allclose(np.nanmedian(pv.speed_px_per_frame), wavelength / period, rtol=1e-3)
+    np.testing.assert_allclose(np.nanmedian(pv.wavelength_px), wavelength, rtol=1e-3)
+    d = np.angle(np.exp(1j * (pv.direction_rad - np.deg2rad(angle_deg))))
+    assert np.abs(d).max() < 1e-3
+    assert np.nanmin(pv.coherence) > 0.999
+
+
+def test_target_wave_speed_and_outward_direction():
+    # exact: phase = w t - k r about a centre; fronts move outward at lambda/T
+    nt, n = 100, 61
+    period, wavelength = 16.0, 10.0
+    t, y, x = np.meshgrid(np.arange(nt), np.arange(n), np.arange(n), indexing="ij")
+    r = np.hypot(y - 30.0, x - 30.0)
+    z = analytic_signal(np.cos(2 * np.pi * (t / period - r / wavelength)))
+    pv = phase_velocity(z[20:-20])
+    ring = (r[0] > 8) & (r[0] < 25)
+    np.testing.assert_allclose(np.median(pv.speed_px_per_frame[ring]), wavelength / period, rtol=0.01)
+    outward = np.arctan2(-(y[0] - 30.0), x[0] - 30.0)
+    d = np.angle(np.exp(1j * (pv.direction_rad - outward)))[ring]
+    assert np.percentile(np.abs(d), 95) < 0.05
+
+
+def test_collision_line_has_low_coherence():
+    # two sources of equal period: fronts meet at the midline and annihilate;
+    # there the wave vector flips, so the time-averaged direction is incoherent
+    nt, ny, nx = 120, 20, 81
+    period, wavelength = 16.0, 12.0
+    t, y, x = np.meshgrid(np.arange(nt), np.arange(ny), np.arange(nx), indexing="ij")
+    ph = 2 * np.pi * t / period - 2 * np.pi * np.minimum(np.abs(x - 10), np.abs(x - 70)) / wavelength
+    z = analytic_signal(np.cos(ph))
+    pv = phase_velocity(z[20:-20])
+    assert np.nanmedian(pv.coherence[:, 40]) < 0.3
+    assert np.nanmedian(pv.coherence[:, 25]) > 0.99
+
+
+def test_activation_fit_kernel_equals_numpy_twin_and_truth():
+    # Bayly et al. 1998 local plane fit; truth: speed lambda / T, direction 30 deg
+    period, wavelength = 18.0, 11.0
+    sig = _plane(90, 16, 18, period=period, wavelength=wavelength, angle_deg=30.0)
+    rng = np.random.default_rng(3)
+    sig = sig + 0.05 * rng.normal(size=sig.shape)
+    phase, _ = phase_and_amplitude(analytic_signal(sig)[15:-15])
+    times, counts = activation_times(phase)
+    assert counts.min() >= 2
+    sp, di = activation_fit_speed(times, counts, max_dt_frames=period / 3)
+    sp2, di2 = activation_fit_speed_numpy(times, counts, max_dt_frames=period / 3)
+    np.testing.assert_allclose(sp, sp2, rtol=1e-4, equal_nan=True)
+    np.testing.assert_allclose(np.nanmedian(sp), wavelength / period, rtol=0.02)
+    assert abs(np.rad2deg(np.nanmedian(di)) - 30.0) < 1.0
+
+
+def test_activation_times_interpolate_crossings():
+    # exact: phase = 2 pi (t - t0) / T crosses zero upward at t0 + m T
+    t = np.arange(100, dtype=float)
+    t0, period = 3.25, 20.0
+    phase = np.angle(np.exp(2j * np.pi * (t - t0) / period)).astype(np.float32)
+    times, counts = activation_times(phase[:, None, None])
+    np.testing.assert_allclose(times[0, 0, : counts[0, 0]], t0 + period * np.arange(5), atol=1e-4)

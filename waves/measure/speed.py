@@ -1,0 +1,309 @@
+"""Front speed, direction and wavelength from a phase field.
+
+Two independent estimates:
+
+- phase velocity from the complex field: the local wave vector is minus the
+  phase gradient, computed from products of neighbouring samples of the
+  analytic signal z (angle(z[x+1] conj z[x])), so phase wrapping never bites;
+  speed = omega / |k|, omega the phase advance per frame, wavelength 2 pi / |k|.
+  Averaging the wave vector over time and comparing its length with the mean
+  length gives a coherence in [0, 1] that is low at cores and collision lines,
+  where the direction changes from wave to wave.
+- activation-time local fits (Bayly et al. 1998): each wave's arrival time at
+  a pixel is the upward zero crossing of its phase; a plane
+  T(x, y) = a + b x + c y is fitted to the arrival times of the same wave in a
+  small neighbourhood; speed = 1 / |grad T|, velocity = grad T / |grad T|^2.
+
+Units here are pixels and frames; directions are angles counterclockwise as
+displayed from the +x (column) axis, in radians.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numba
+import numpy as np
+
+from waves.errors import WavesError
+
+__all__ = [
+    "phase_gradient",
+    "PhaseVelocity",
+    "phase_velocity",
+    "activation_times",
+    "activation_fit_speed",
+    "activation_fit_speed_numpy",
+]
+
+
+def _forward_angle(z: np.ndarray, axis: int) -> np.ndarray:
+    a = np.take(z, np.arange(1, z.shape[axis]), axis=axis)
+    b = np.take(z, np.arange(0, z.shape[axis] - 1), axis=axis)
+    prod = a * np.conj(b)
+    return np.arctan2(prod.imag.astype(np.float32), prod.real.astype(np.float32))
+
+
+def _central(fwd: np.ndarray, axis: int) -> np.ndarray:
+    """Central differences from forward ones, one-sided at both ends."""
+    n = fwd.shape[axis] + 1
+    out_shape = list(fwd.shape)
+    out_shape[axis] = n
+    out = np.empty(out_shape, dtype=np.float32)
+    sl = [slice(None)] * fwd.ndim
+
+    def put(idx, val):
+        s = list(sl)
+        s[axis] = idx
+        out[tuple(s)] = val
+
+    def get(idx):
+        s = list(sl)
+        s[axis] = idx
+        return fwd[tuple(s)]
+
+    put(slice(1, n - 1), 0.5 * (get(slice(1, None)) + get(slice(None, -1))))
+    put(0, get(0))
+    put(n - 1, get(n - 2))
+    return out
+
+
+def phase_gradient(z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Phase gradient (d phase / d row, d phase / d col) in radians per pixel.
+
+    `z` is an analytic signal of shape (..., y, x).  Valid while a wavelength
+    spans more than two pixels.
+    """
+    z = np.asarray(z)
+    if z.ndim < 2 or z.shape[-1] < 2 or z.shape[-2] < 2:
+        raise WavesError("phase gradient needs frames of at least 2 x 2 pixels")
+    gy = _central(_forward_angle(z, z.ndim - 2), z.ndim - 2)
+    gx = _central(_forward_angle(z, z.ndim - 1), z.ndim - 1)
+    return gy, gx
+
+
+@dataclass(frozen=True)
+class PhaseVelocity:
+    """Time-averaged phase-velocity maps (pixels, frames, radians)."""
+
+    speed_px_per_frame: np.ndarray
+    direction_rad: np.ndarray  # counterclockwise as displayed, from +x
+    wavelength_px: np.ndarray
+    omega_rad_per_frame: np.ndarray
+    coherence: np.ndarray  # |mean k| / mean |k|, in [0, 1]
+
+
+def phase_velocity(z: np.ndarray, *, valid: np.ndarray | None = None) -> PhaseVelocity:
+    """Phase-velocity maps from an analytic signal z of shape (t, y, x).
+
+    `valid` (t, y, x) bool selects the samples that count (e.g. amplitude above
+    a noise floor); pixels with none get NaN.
+    """
+    z = np.asarray(z)
+    if z.ndim != 3 or z.shape[0] < 2:
+        raise WavesError("phase velocity needs an analytic signal of shape (t, y, x), t >= 2")
+    gy, gx = phase_gradient(z)
+    # wave vector (propagation direction) is minus the phase gradient
+    ky, kx = -gy, -gx
+    prod = z[1:] * np.conj(z[:-1])
+    adv = np.arctan2(prod.imag.astype(np.float32), prod.real.astype(np.float32))
+    if valid is None:
+        w_k = np.ones(z.shape, dtype=np.float32)
+    else:
+        w_k = np.asarray(valid, dtype=np.float32)
+    w_adv = w_k[1:] * w_k[:-1]
+    n_k = w_k.sum(axis=0)
+    n_adv = w_adv.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        kx_m = (kx * w_k).sum(axis=0) / n_k
+        ky_m = (ky * w_k).sum(axis=0) / n_k
+        k_abs_m = (np.hypot(kx, ky) * w_k).sum(axis=0) / n_k
+        omega = (adv * w_adv).sum(axis=0) / n_adv
+        k_len = np.hypot(kx_m, ky_m)
+        speed = np.where(k_len > 0, omega / k_len, np.nan)
+        wavelength = np.where(k_len > 0, 2 * np.pi / k_len, np.nan)
+        coherence = np.where(k_abs_m > 0, k_len / k_abs_m, np.nan)
+    # displayed direction: +x to the right, +y up on screen = -row
+    direction = np.arctan2(-ky_m, kx_m)
+    return PhaseVelocity(
+        speed_px_per_frame=speed.astype(np.float32),
+        direction_rad=direction.astype(np.float32),
+        wavelength_px=wavelength.astype(np.float32),
+        omega_rad_per_frame=omega.astype(np.float32),
+        coherence=coherence.astype(np.float32),
+    )
+
+
+@numba.njit(cache=True, nogil=True, parallel=True)
+def _crossings_kernel(phase, out_t, out_n):
+    nt, ny, nx = phase.shape
+    m = out_t.shape[2]
+    for r in numba.prange(ny):
+        for c in range(nx):
+            k = 0
+            for t in range(nt - 1):
+                a = phase[t, r, c]
+                b = phase[t + 1, r, c]
+                if a < 0.0 and b >= 0.0 and (b - a) < math.pi:
+                    if k < m:
+                        out_t[r, c, k] = t + (-a) / (b - a)
+                        k += 1
+            out_n[r, c] = k
+
+
+def activation_times(phase: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Arrival times (frames, sub-frame interpolated) of every wave at every
+    pixel: upward zero crossings of the phase.
+
+    Returns (times, counts): times (y, x, m) padded with NaN, counts (y, x).
+    """
+    p = np.ascontiguousarray(phase, dtype=np.float32)
+    if p.ndim != 3:
+        raise WavesError("activation times need a phase array of shape (t, y, x)")
+    m = p.shape[0] // 2 + 1
+    times = np.full((p.shape[1], p.shape[2], m), np.nan, dtype=np.float32)
+    counts = np.zeros((p.shape[1], p.shape[2]), dtype=np.int32)
+    _crossings_kernel(p, times, counts)
+    mmax = max(int(counts.max()), 1)
+    return times[:, :, :mmax].copy(), counts
+
+
+@numba.njit(cache=True, nogil=True, parallel=True)
+def _fit_kernel(times, counts, radius, max_dt, min_points, out_speed, out_dir):
+    ny, nx, m = times.shape
+    for r in numba.prange(ny):
+        for c in range(nx):
+            for k in range(counts[r, c]):
+                t0 = times[r, c, k]
+                # normal equations of T = a + b dx + c dy (dx along col, dy along row)
+                s1 = 0.0
+                sx = 0.0
+                sy = 0.0
+                sxx = 0.0
+                syy = 0.0
+                sxy = 0.0
+                st = 0.0
+                sxt = 0.0
+                syt = 0.0
+                npts = 0
+                for dr in range(-radius, radius + 1):
+                    rr = r + dr
+                    if rr < 0 or rr >= ny:
+                        continue
+                    for dc in range(-radius, radius + 1):
+                        cc = c + dc
+                        if cc < 0 or cc >= nx:
+                            continue
+                        best = 1e30
+                        tb = 0.0
+                        for j in range(counts[rr, cc]):
+                            d = abs(times[rr, cc, j] - t0)
+                            if d < best:
+                                best = d
+                                tb = times[rr, cc, j]
+                        if best <= max_dt:
+                            x = float(dc)
+                            y = float(dr)
+                            tt = tb - t0
+                            s1 += 1.0
+                            sx += x
+                            sy += y
+                            sxx += x * x
+                            syy += y * y
+                            sxy += x * y
+                            st += tt
+                            sxt += x * tt
+                            syt += y * tt
+                            npts += 1
+                if npts < min_points:
+                    continue
+                # solve the 3x3 symmetric system by Cramer's rule
+                a11, a12, a13 = s1, sx, sy
+                a22, a23, a33 = sxx, sxy, syy
+                det = (
+                    a11 * (a22 * a33 - a23 * a23)
+                    - a12 * (a12 * a33 - a23 * a13)
+                    + a13 * (a12 * a23 - a22 * a13)
+                )
+                if abs(det) < 1e-9:
+                    continue
+                gx = (
+                    a11 * (sxt * a33 - a23 * syt)
+                    - st * (a12 * a33 - a23 * a13)
+                    + a13 * (a12 * syt - sxt * a13)
+                ) / det
+                gy = (
+                    a11 * (a22 * syt - sxt * a23)
+                    - a12 * (a12 * syt - sxt * a13)
+                    + st * (a12 * a23 - a22 * a13)
+                ) / det
+                g2 = gx * gx + gy * gy
+                if g2 <= 0.0:
+                    continue
+                out_speed[r, c, k] = 1.0 / math.sqrt(g2)
+                # velocity = grad T / |grad T|^2; displayed angle (+y up = -row)
+                out_dir[r, c, k] = math.atan2(-gy, gx)
+
+
+def activation_fit_speed(
+    times: np.ndarray,
+    counts: np.ndarray,
+    *,
+    radius_px: int = 2,
+    max_dt_frames: float,
+    min_points: int = 6,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Local plane fits to arrival times (Bayly et al. 1998).
+
+    For every wave k at every pixel, the arrival times of the same wave at the
+    pixels within `radius_px` (the neighbour's arrival closest in time, no
+    more than `max_dt_frames` away, e.g. a third of a period) are fitted by a
+    plane.  Returns (speed, direction) of shape (y, x, m) in pixels per frame
+    and radians (counterclockwise as displayed), NaN where no fit was made.
+    """
+    t = np.ascontiguousarray(times, dtype=np.float64)
+    n = np.ascontiguousarray(counts, dtype=np.int32)
+    speed = np.full(t.shape, np.nan, dtype=np.float32)
+    direction = np.full(t.shape, np.nan, dtype=np.float32)
+    _fit_kernel(t, n, int(radius_px), float(max_dt_frames), int(min_points), speed, direction)
+    return speed, direction
+
+
+def activation_fit_speed_numpy(
+    times: np.ndarray,
+    counts: np.ndarray,
+    *,
+    radius_px: int = 2,
+    max_dt_frames: float,
+    min_points: int = 6,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Readable twin of `activation_fit_speed` (numpy least squares)."""
+    ny, nx, m = times.shape
+    speed = np.full(times.shape, np.nan, dtype=np.float32)
+    direction = np.full(times.shape, np.nan, dtype=np.float32)
+    for r in range(ny):
+        for c in range(nx):
+            for k in range(counts[r, c]):
+                t0 = times[r, c, k]
+                rows = []
+                for dr in range(-radius_px, radius_px + 1):
+                    for dc in range(-radius_px, radius_px + 1):
+                        rr, cc = r + dr, c + dc
+                        if not (0 <= rr < ny and 0 <= cc < nx) or counts[rr, cc] == 0:
+                            continue
+                        cand = times[rr, cc, : counts[rr, cc]]
+                        j = np.argmin(np.abs(cand - t0))
+                        if abs(cand[j] - t0) <= max_dt_frames:
+                            rows.append((1.0, dc, dr, cand[j] - t0))
+                if len(rows) < min_points:
+                    continue
+                a = np.array(rows, dtype=np.float64)
+                coef, *_ = np.linalg.lstsq(a[:, :3], a[:, 3], rcond=None)
+                gx, gy = coef[1], coef[2]
+                g2 = gx * gx + gy * gy
+                if g2 <= 0:
+                    continue
+                speed[r, c, k] = 1.0 / np.sqrt(g2)
+                direction[r, c, k] = np.arctan2(-gy, gx)
+    return speed, direction
