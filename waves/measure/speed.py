@@ -32,6 +32,7 @@ __all__ = [
     "phase_gradient",
     "PhaseVelocity",
     "phase_velocity",
+    "windowed_phase_velocity",
     "activation_times",
     "activation_fit_speed",
     "activation_fit_speed_numpy",
@@ -95,7 +96,8 @@ class PhaseVelocity:
 
 
 def phase_velocity(z: np.ndarray, *, valid: np.ndarray | None = None) -> PhaseVelocity:
-    """Phase-velocity maps from an analytic signal z of shape (t, y, x).
+    """Phase-velocity maps from an analytic signal z of shape (t, y, x),
+    averaged over the whole movie.
 
     `valid` (t, y, x) bool selects the samples that count (e.g. amplitude above
     a noise floor); pixels with none get NaN.
@@ -103,36 +105,73 @@ def phase_velocity(z: np.ndarray, *, valid: np.ndarray | None = None) -> PhaseVe
     z = np.asarray(z)
     if z.ndim != 3 or z.shape[0] < 2:
         raise WavesError("phase velocity needs an analytic signal of shape (t, y, x), t >= 2")
+    return windowed_phase_velocity(z, windows=[(0, z.shape[0])], valid=valid)[0]
+
+
+def windowed_phase_velocity(
+    z: np.ndarray,
+    *,
+    windows: list[tuple[int, int]],
+    valid: np.ndarray | None = None,
+) -> list[PhaseVelocity]:
+    """Phase-velocity maps averaged over each time window [start, stop) of z.
+
+    The wave vector k = -grad(phase) and the advance omega are averaged over
+    the same samples, so their ratio (the speed) is exact for any travelling
+    wave of fixed shape, even where the phase speed is uneven within a cycle
+    (narrow pulses); `wavelength_px` = 2 pi / |mean k| and `omega` carry that
+    unevenness when a window is not a whole number of cycles.
+    """
+    z = np.asarray(z)
+    if z.ndim != 3 or z.shape[0] < 2:
+        raise WavesError("phase velocity needs an analytic signal of shape (t, y, x), t >= 2")
+    nt = z.shape[0]
     gy, gx = phase_gradient(z)
-    # wave vector (propagation direction) is minus the phase gradient
-    ky, kx = -gy, -gx
     prod = z[1:] * np.conj(z[:-1])
     adv = np.arctan2(prod.imag.astype(np.float32), prod.real.astype(np.float32))
+    del prod
     if valid is None:
-        w_k = np.ones(z.shape, dtype=np.float32)
+        w_k = None
     else:
         w_k = np.asarray(valid, dtype=np.float32)
-    w_adv = w_k[1:] * w_k[:-1]
-    n_k = w_k.sum(axis=0)
-    n_adv = w_adv.sum(axis=0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        kx_m = (kx * w_k).sum(axis=0) / n_k
-        ky_m = (ky * w_k).sum(axis=0) / n_k
-        k_abs_m = (np.hypot(kx, ky) * w_k).sum(axis=0) / n_k
-        omega = (adv * w_adv).sum(axis=0) / n_adv
-        k_len = np.hypot(kx_m, ky_m)
-        speed = np.where(k_len > 0, omega / k_len, np.nan)
-        wavelength = np.where(k_len > 0, 2 * np.pi / k_len, np.nan)
-        coherence = np.where(k_abs_m > 0, k_len / k_abs_m, np.nan)
-    # displayed direction: +x to the right, +y up on screen = -row
-    direction = np.arctan2(-ky_m, kx_m)
-    return PhaseVelocity(
-        speed_px_per_frame=speed.astype(np.float32),
-        direction_rad=direction.astype(np.float32),
-        wavelength_px=wavelength.astype(np.float32),
-        omega_rad_per_frame=omega.astype(np.float32),
-        coherence=coherence.astype(np.float32),
-    )
+    out = []
+    for start, stop in windows:
+        start, stop = int(start), int(stop)
+        if not 0 <= start < stop <= nt or stop - start < 2:
+            raise WavesError(f"window [{start}, {stop}) does not fit in {nt} frames")
+        sl = slice(start, stop)
+        sa = slice(start, stop - 1)  # advances between frames of the window
+        if w_k is None:
+            wk = np.ones((stop - start,) + z.shape[1:], dtype=np.float32)
+            wa = np.ones((stop - start - 1,) + z.shape[1:], dtype=np.float32)
+        else:
+            wk = w_k[sl]
+            wa = w_k[start : stop - 1] * w_k[start + 1 : stop]
+        ky = -gy[sl]
+        kx = -gx[sl]
+        n_k = wk.sum(axis=0)
+        n_a = wa.sum(axis=0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            kx_m = (kx * wk).sum(axis=0) / n_k
+            ky_m = (ky * wk).sum(axis=0) / n_k
+            k_abs_m = (np.hypot(kx, ky) * wk).sum(axis=0) / n_k
+            omega = (adv[sa] * wa).sum(axis=0) / n_a
+            k_len = np.hypot(kx_m, ky_m)
+            speed = np.where(k_len > 0, omega / k_len, np.nan)
+            wavelength = np.where(k_len > 0, 2 * np.pi / k_len, np.nan)
+            coherence = np.where(k_abs_m > 0, k_len / k_abs_m, np.nan)
+        # displayed direction: +x to the right, +y up on screen = -row
+        direction = np.arctan2(-ky_m, kx_m)
+        out.append(
+            PhaseVelocity(
+                speed_px_per_frame=speed.astype(np.float32),
+                direction_rad=direction.astype(np.float32),
+                wavelength_px=wavelength.astype(np.float32),
+                omega_rad_per_frame=omega.astype(np.float32),
+                coherence=coherence.astype(np.float32),
+            )
+        )
+    return out
 
 
 @numba.njit(cache=True, nogil=True, parallel=True)

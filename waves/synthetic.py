@@ -1,0 +1,883 @@
+"""Analytic wave fields with known truth, in calibrated units.
+
+Target rings, rotating spirals and plane waves, one or several, are written
+down as closed-form phase fields, so every number the analyser should find
+(period, speed, wavelength, core positions and charges, rotation sense,
+territories) is known exactly by construction.  Frame ``i`` is at
+``t_min = i * frame_interval_s / 60``; pixel ``[row, col]`` sits at
+``x_um = col * pixel_size_um``, ``y_um = row * pixel_size_um`` (DESIGN.md).
+
+Phase convention
+----------------
+The wave phase increases in time (d phase/dt = 2 pi / T > 0) and decreases with
+distance from a source (waves travel outward).  With omega = 2 pi / T,
+k = 2 pi / wavelength, wavelength_um = speed_um_per_min * period_min, and
+r the distance from the source:
+
+- target:  phase = omega t - k r + phi0
+- spiral with topological charge q = +1 or -1:
+           phase = omega t - k r + q * theta_disp + phi0,
+  where theta_disp = atan2(-(y - y0), x - x0) is the polar angle counted
+  COUNTERCLOCKWISE AS DISPLAYED (row 0 at the top, so y grows downward on the
+  screen).  The topological charge is the winding of the phase counted
+  counterclockwise as displayed (DESIGN.md), which is q.  Because the phase
+  increases in time, a spiral of charge +1 rotates CLOCKWISE as displayed and
+  one of charge -1 COUNTERCLOCKWISE (see `rotation_of_charge`).
+- plane wave travelling in direction a (degrees counterclockwise from +x as
+  displayed, 0 = rightwards, 90 = upwards on the screen):
+           phase = omega t - k s + phi0,  s = x cos a - y sin a.
+
+Exactly, a source emits with the phase Phi(t) = 2 pi * integral_0^t dt'/T(t')
+and the wave travels at constant speed c, so the phase at distance r is
+Phi(t - r/c) (+ q theta_disp + phi0).  For a constant period this is the
+formula above.  A drifting period is linear in time, from `period_min` at
+t = 0 to `period_end_min` at `drift_end_min` (default: the last frame), and
+constant outside that interval (period_min before, period_end_min after);
+Phi is integrated in closed form (a logarithm), not summed.  The local period
+seen at distance r at time t is T(t - r/c).  Excitation is maximal where the
+phase is 0 (mod 2 pi).
+
+Several sources
+---------------
+In a relay medium the wave that arrives first wins and colliding fronts
+annihilate.  Modelled here: at each pixel and time the phase is that of the
+source whose unwrapped phase (the expression above, with theta_disp in
+(-pi, pi]) is largest; exact ties go to the lower source index.  For equal
+periods and offsets of targets this gives Voronoi territories (nearest source
+wins); a source of shorter period gradually takes over.  The truth records the
+winner map of the first and last frames, the area each source holds in every
+frame, and `WaveField.labels_at(index)` recomputes the winner map of any
+frame exactly.
+
+Topology forces one caveat: the phase winding around a closed curve equals
+the total charge inside, so a spiral whose territory is enclosed by another
+source's territory must be accompanied by a compensating singularity on its
+territory boundary (where the spiral's branch ray theta_disp = pi, pointing
+left on the screen, meets the boundary).  Such boundary defects are not in
+`WaveField.cores`.  To avoid them, let each spiral's territory reach the edge
+of the field along its leftward ray, or pair spirals of opposite charge.
+
+Returned phases are float32 in (-pi, pi].  The competition is evaluated in
+frame blocks by a compiled kernel (`_competition_kernel`) beside a readable
+numpy twin (`_Evaluator.block_numpy`); the two are tested against each other.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterator, Sequence
+from dataclasses import KW_ONLY, dataclass, field
+
+import numpy as np
+from numba import njit
+
+from waves.errors import WavesError
+from waves.render import DarkfieldRenderer, DarkfieldStyle
+from waves.units import Calibration
+
+__all__ = [
+    "TargetSource",
+    "SpiralSource",
+    "PlanarSource",
+    "SourceTruth",
+    "Core",
+    "WaveField",
+    "SyntheticMovie",
+    "rotation_of_charge",
+    "pulse_exponent",
+    "excitation",
+    "phase_field",
+    "planar_wave",
+    "synthetic_movie",
+]
+
+_TWO_PI = 2.0 * math.pi
+# elements (frames x pixels) evaluated at once; float64 temporaries of this
+# size are 16 MiB each
+_BLOCK_ELEMENTS = 1 << 21
+_DEFAULT_STYLE = DarkfieldStyle()
+
+
+# ----------------------------------------------------------------------------
+# sources
+
+
+def _finite(name: str, value: object) -> float:
+    try:
+        out = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        raise WavesError(f"{name} must be a number, got {value!r}") from None
+    if not math.isfinite(out):
+        raise WavesError(f"{name} must be finite, got {value!r}")
+    return out
+
+
+def _positive(name: str, value: object, hint: str) -> float:
+    out = _finite(name, value)
+    if out <= 0.0:
+        raise WavesError(f"{name} must be positive, got {value!r} ({hint})")
+    return out
+
+
+def _check_period_fields(kind: str, src: Source) -> None:
+    """Validate and normalise the period options shared by all sources."""
+    values = {
+        "period_min": _positive(f"{kind}.period_min", src.period_min, "minutes, e.g. 6.5"),
+        "phase0": _finite(f"{kind}.phase0", src.phase0),
+    }
+    if src.period_end_min is not None:
+        values["period_end_min"] = _positive(
+            f"{kind}.period_end_min", src.period_end_min, "minutes, or None for a constant period"
+        )
+    if src.drift_end_min is not None:
+        values["drift_end_min"] = _positive(
+            f"{kind}.drift_end_min", src.drift_end_min,
+            "minutes after the first frame, or None for the last frame",
+        )
+    for name, value in values.items():
+        object.__setattr__(src, name, value)
+
+
+@dataclass(frozen=True)
+class TargetSource:
+    """A pacemaker at (x_um, y_um) emitting concentric rings every `period_min`.
+
+    phase0          phase offset (radians).
+    period_end_min  if given, the period drifts linearly from `period_min` at
+                    t = 0 to this value at `drift_end_min`.
+    drift_end_min   end of the drift, minutes after the first frame
+                    (None: the last frame).
+    """
+
+    x_um: float
+    y_um: float
+    period_min: float
+    _: KW_ONLY
+    phase0: float = 0.0
+    period_end_min: float | None = None
+    drift_end_min: float | None = None
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "x_um", _finite("TargetSource.x_um", self.x_um))
+        object.__setattr__(self, "y_um", _finite("TargetSource.y_um", self.y_um))
+        _check_period_fields("TargetSource", self)
+
+
+@dataclass(frozen=True)
+class SpiralSource:
+    """An Archimedean spiral rotating about a core at (x_um, y_um).
+
+    charge  +1 (rotates clockwise as displayed) or -1 (counterclockwise);
+            the phase winds by 2 pi * charge counterclockwise as displayed.
+    Other options as for `TargetSource`.
+    """
+
+    x_um: float
+    y_um: float
+    period_min: float
+    _: KW_ONLY
+    charge: int = 1
+    phase0: float = 0.0
+    period_end_min: float | None = None
+    drift_end_min: float | None = None
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "x_um", _finite("SpiralSource.x_um", self.x_um))
+        object.__setattr__(self, "y_um", _finite("SpiralSource.y_um", self.y_um))
+        if isinstance(self.charge, bool) or self.charge not in (1, -1):
+            raise WavesError(
+                f"SpiralSource.charge must be +1 (clockwise as displayed) or -1 "
+                f"(counterclockwise as displayed), got {self.charge!r}"
+            )
+        object.__setattr__(self, "charge", int(self.charge))
+        _check_period_fields("SpiralSource", self)
+
+
+@dataclass(frozen=True)
+class PlanarSource:
+    """A plane wave travelling in `direction_deg` (degrees counterclockwise
+    from +x as displayed: 0 rightwards, 90 upwards on the screen).  Its phase
+    is `phase0` on the line through pixel (0, 0) perpendicular to the travel
+    direction at t = 0.  Other options as for `TargetSource`."""
+
+    direction_deg: float
+    period_min: float
+    _: KW_ONLY
+    phase0: float = 0.0
+    period_end_min: float | None = None
+    drift_end_min: float | None = None
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "direction_deg", _finite("PlanarSource.direction_deg", self.direction_deg))
+        _check_period_fields("PlanarSource", self)
+
+
+Source = TargetSource | SpiralSource | PlanarSource
+
+
+def rotation_of_charge(charge: int) -> str:
+    """Rotation sense, as displayed, of a spiral of topological charge `charge`.
+
+    Derivation: phase = omega t - k r + q theta_disp + phi0 with omega > 0 and
+    theta_disp counted counterclockwise as displayed.  Following a line of
+    constant phase at fixed r, d phase = 0 = omega dt + q d theta_disp, so
+    d theta_disp / dt = -omega / q: for q = +1 the arms turn towards smaller
+    theta_disp, i.e. CLOCKWISE as displayed; for q = -1 COUNTERCLOCKWISE.
+    """
+    if isinstance(charge, bool) or charge not in (1, -1):
+        raise WavesError(f"a spiral's charge is +1 or -1, got {charge!r}")
+    return "clockwise" if charge == 1 else "counterclockwise"
+
+
+# ----------------------------------------------------------------------------
+# period law: T(t) and Phi(t) = 2 pi int_0^t dt'/T(t'), in closed form
+
+
+@dataclass(frozen=True)
+class _PeriodLaw:
+    """T = t0 for t <= 0, linear to t1 at t = d, t1 after (minutes)."""
+
+    t0: float
+    t1: float
+    d: float
+
+    @property
+    def slope(self) -> float:
+        return (self.t1 - self.t0) / self.d if self.t1 != self.t0 else 0.0
+
+    def period(self, t: np.ndarray | float) -> np.ndarray:
+        t = np.asarray(t, dtype=np.float64)
+        if self.slope == 0.0:
+            return np.full_like(t, self.t0)
+        return np.where(t <= 0.0, self.t0, np.where(t >= self.d, self.t1, self.t0 + self.slope * t))
+
+    def phase(self, t: np.ndarray) -> np.ndarray:
+        """Phi(t) in radians, Phi(0) = 0 (float64)."""
+        t = np.asarray(t, dtype=np.float64)
+        if self.slope == 0.0:
+            return t * (_TWO_PI / self.t0)
+        a = self.slope
+        tm = np.clip(t, 0.0, self.d)
+        # int_0^tm dt/(t0 + a t) = log1p(a tm / t0) / a  (exact)
+        out = np.log1p(tm * (a / self.t0)) * (_TWO_PI / a)
+        out += np.minimum(t, 0.0) * (_TWO_PI / self.t0)
+        out += np.maximum(t - self.d, 0.0) * (_TWO_PI / self.t1)
+        return out
+
+
+def _law_of(src: Source, last_frame_min: float) -> _PeriodLaw:
+    if src.period_end_min is None or src.period_end_min == src.period_min:
+        return _PeriodLaw(src.period_min, src.period_min, 1.0)
+    d = src.drift_end_min if src.drift_end_min is not None else last_frame_min
+    if d <= 0.0:
+        raise WavesError(
+            "a drifting period needs a drift duration: the movie has a single frame, so give "
+            "drift_end_min (minutes) on the source"
+        )
+    return _PeriodLaw(src.period_min, src.period_end_min, d)
+
+
+# ----------------------------------------------------------------------------
+# truth
+
+
+@dataclass(frozen=True)
+class Core:
+    """A spiral core: position (um), charge and rotation sense as displayed."""
+
+    x_um: float
+    y_um: float
+    charge: int
+    rotation: str
+    source_index: int
+
+    def to_dict(self) -> dict:
+        return {
+            "x_um": self.x_um,
+            "y_um": self.y_um,
+            "charge": self.charge,
+            "rotation": self.rotation,
+            "source_index": self.source_index,
+        }
+
+
+@dataclass(frozen=True)
+class SourceTruth:
+    """What one source is, exactly.
+
+    kind               'target', 'spiral' or 'planar'.
+    x_um, y_um         position (None for a plane wave).
+    direction_deg      travel direction of a plane wave (None otherwise).
+    period_min         period at t = 0 (at the source).
+    period_end_min     period at the end of the drift (= period_min if constant).
+    drift_end_min      time the drift ends (None if constant).
+    charge             +1/-1 for spirals, 0 otherwise.
+    rotation           'clockwise'/'counterclockwise' for spirals, None otherwise.
+    wavelength_um      speed_um_per_min * period_min.
+    wavelength_end_um  speed_um_per_min * period_end_min.
+    period_timecourse  ((t_min, period_min), ...) emitted at the source, per frame.
+    """
+
+    index: int
+    kind: str
+    x_um: float | None
+    y_um: float | None
+    direction_deg: float | None
+    period_min: float
+    period_end_min: float
+    drift_end_min: float | None
+    phase0: float
+    charge: int
+    rotation: str | None
+    wavelength_um: float
+    wavelength_end_um: float
+    period_timecourse: tuple[tuple[float, float], ...]
+
+    def to_dict(self) -> dict:
+        """JSON-friendly record; the period time course is given per frame when
+        the period drifts, and by its first and last frame when it is constant."""
+        course = self.period_timecourse
+        if self.drift_end_min is None:
+            course = (course[0], course[-1])
+        return {
+            "index": self.index,
+            "kind": self.kind,
+            "x_um": self.x_um,
+            "y_um": self.y_um,
+            "direction_deg": self.direction_deg,
+            "period_min": self.period_min,
+            "period_end_min": self.period_end_min,
+            "drift_end_min": self.drift_end_min,
+            "phase0": self.phase0,
+            "charge": self.charge,
+            "rotation": self.rotation,
+            "wavelength_um": self.wavelength_um,
+            "wavelength_end_um": self.wavelength_end_um,
+            "period_timecourse": [{"t_min": t, "period_min": p} for t, p in course],
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class WaveField:
+    """Known truth of a synthetic field.
+
+    shape_tyx                  movie shape (frames, rows, columns).
+    pixel_size_um              micrometres per pixel.
+    frame_interval_s           seconds between frames (frame i at t_min = i * frame_interval_s / 60).
+    speed_um_per_min           front speed of every wave.
+    sources                    one `SourceTruth` per source, in input order (the label values).
+    cores                      one `Core` per spiral (x_um, y_um, charge, rotation), whether or
+                               not its core lies inside the field or its own territory.
+    labels_first, labels_last  (y, x) int16: index of the winning source in the
+                               first and last frame (`labels_at` gives any frame).
+    territory_area_mm2         (t, n_sources) float64: area each source holds per frame.
+    """
+
+    shape_tyx: tuple[int, int, int]
+    pixel_size_um: float
+    frame_interval_s: float
+    speed_um_per_min: float
+    sources: tuple[SourceTruth, ...]
+    cores: tuple[Core, ...]
+    labels_first: np.ndarray = field(repr=False)
+    labels_last: np.ndarray = field(repr=False)
+    territory_area_mm2: np.ndarray = field(repr=False)
+    _inputs: tuple = field(repr=False, default=())
+
+    @property
+    def calibration(self) -> Calibration:
+        return Calibration(self.pixel_size_um, self.frame_interval_s, "simulation", "simulation")
+
+    @property
+    def t_min(self) -> np.ndarray:
+        """Frame times (minutes), float64."""
+        return np.arange(self.shape_tyx[0]) * (self.frame_interval_s / 60.0)
+
+    @property
+    def period_min(self) -> tuple[float, ...]:
+        return tuple(s.period_min for s in self.sources)
+
+    @property
+    def wavelength_um(self) -> tuple[float, ...]:
+        return tuple(s.wavelength_um for s in self.sources)
+
+    def period_at(self, source_index: int, t_min: np.ndarray | float) -> np.ndarray:
+        """Period (min) that source `source_index` emits at time `t_min`.  At
+        distance r the local period at time t is ``period_at(i, t - r / speed)``."""
+        return _law_of(self._inputs[source_index], self._last_frame_min).period(t_min)
+
+    @property
+    def _last_frame_min(self) -> float:
+        return (self.shape_tyx[0] - 1) * self.frame_interval_s / 60.0
+
+    def labels_at(self, index: int) -> np.ndarray:
+        """Winning-source map (y, x) int16 of frame `index`, recomputed exactly."""
+        if not 0 <= int(index) < self.shape_tyx[0]:
+            raise WavesError(f"frame index {index!r} is outside 0..{self.shape_tyx[0] - 1}")
+        evaluator = _Evaluator(
+            self._inputs,
+            self.shape_tyx,
+            pixel_size_um=self.pixel_size_um,
+            frame_interval_s=self.frame_interval_s,
+            speed_um_per_min=self.speed_um_per_min,
+        )
+        _, labels = evaluator.block(int(index), int(index) + 1)
+        return labels[0]
+
+    def to_dict(self) -> dict:
+        """JSON-friendly truth (no per-pixel maps)."""
+        area = self.territory_area_mm2
+        return {
+            "shape_tyx": list(self.shape_tyx),
+            "pixel_size_um": self.pixel_size_um,
+            "frame_interval_s": self.frame_interval_s,
+            "speed_um_per_min": self.speed_um_per_min,
+            "sources": [s.to_dict() for s in self.sources],
+            "spiral_cores": [c.to_dict() for c in self.cores],
+            "territory_area_mm2_first": [float(a) for a in area[0]],
+            "territory_area_mm2_last": [float(a) for a in area[-1]],
+            "phase_convention": (
+                "phase = Phi(t - r/c) [+ q*theta_disp] + phi0, Phi(t) = 2 pi int_0^t dt'/T(t'); "
+                "theta_disp counterclockwise as displayed (row 0 at top); excitation peaks at phase 0"
+            ),
+        }
+
+
+# ----------------------------------------------------------------------------
+# evaluation
+
+
+def _check_shape(shape_tyx: Sequence[int]) -> tuple[int, int, int]:
+    try:
+        shape = tuple(int(n) for n in shape_tyx)
+    except (TypeError, ValueError):
+        raise WavesError(f"shape_tyx must be three integers (frames, rows, columns), got {shape_tyx!r}") from None
+    if len(shape) != 3 or min(shape) < 1:
+        raise WavesError(f"shape_tyx must be three positive integers (frames, rows, columns), got {shape_tyx!r}")
+    return shape  # type: ignore[return-value]
+
+
+def _check_sources(sources: Sequence[Source]) -> tuple[Source, ...]:
+    if isinstance(sources, (TargetSource, SpiralSource, PlanarSource)):
+        sources = (sources,)
+    try:
+        out = tuple(sources)
+    except TypeError:
+        raise WavesError("sources must be a sequence of TargetSource, SpiralSource or PlanarSource") from None
+    if not out:
+        raise WavesError("sources is empty; give at least one TargetSource, SpiralSource or PlanarSource")
+    if len(out) > 32767:
+        raise WavesError(f"at most 32767 sources are supported, got {len(out)}")
+    for i, s in enumerate(out):
+        if not isinstance(s, (TargetSource, SpiralSource, PlanarSource)):
+            raise WavesError(
+                f"sources[{i}] is a {type(s).__name__}; use TargetSource, SpiralSource or PlanarSource"
+            )
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _law_phase_scalar(tau: float, t0: float, t1: float, d: float) -> float:
+    """Scalar twin of `_PeriodLaw.phase` (radians, Phi(0) = 0)."""
+    if t1 == t0:
+        return tau * (_TWO_PI / t0)
+    a = (t1 - t0) / d
+    tm = min(max(tau, 0.0), d)
+    out = math.log1p(tm * (a / t0)) * (_TWO_PI / a)
+    out += min(tau, 0.0) * (_TWO_PI / t0)
+    out += max(tau - d, 0.0) * (_TWO_PI / t1)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _competition_kernel(
+    t_min: np.ndarray,  # (nb,) frame times, min
+    delay_min: np.ndarray,  # (ns, ny, nx) travel delay, min
+    angular: np.ndarray,  # (na, ny, nx) q * theta_disp of the spirals, rad
+    angular_index: np.ndarray,  # (ns,) row of `angular`, or -1
+    phase0: np.ndarray,  # (ns,)
+    t0: np.ndarray,  # (ns,) period laws
+    t1: np.ndarray,
+    d: np.ndarray,
+    out_phase: np.ndarray,  # (nb, ny, nx) float32
+    out_label: np.ndarray,  # (nb, ny, nx) int16
+) -> None:
+    """Compiled twin of `_Evaluator.block_numpy`: largest unwrapped phase wins
+    (strictly, so ties stay with the lower index), wrapped into (-pi, pi]."""
+    nb = t_min.shape[0]
+    ns, ny, nx = delay_min.shape
+    pi32 = np.float32(math.pi)
+    for b in range(nb):
+        t = t_min[b]
+        for i in range(ny):
+            for j in range(nx):
+                best = -np.inf
+                lab = 0
+                for s in range(ns):
+                    u = _law_phase_scalar(t - delay_min[s, i, j], t0[s], t1[s], d[s])
+                    k = angular_index[s]
+                    if k >= 0:
+                        u += angular[k, i, j]
+                    u += phase0[s]
+                    if u > best:
+                        best = u
+                        lab = s
+                best -= _TWO_PI * math.ceil((best - math.pi) / _TWO_PI)
+                w = np.float32(best)
+                if w <= -pi32 or w > pi32:
+                    w = pi32
+                out_phase[b, i, j] = w
+                out_label[b, i, j] = lab
+
+
+class _Evaluator:
+    """Evaluates the competing unwrapped phases of all sources frame block by block."""
+
+    def __init__(
+        self,
+        sources: tuple[Source, ...],
+        shape_tyx: tuple[int, int, int],
+        *,
+        pixel_size_um: float,
+        frame_interval_s: float,
+        speed_um_per_min: float,
+    ) -> None:
+        nt, ny, nx = shape_tyx
+        self.shape_tyx = shape_tyx
+        self.dt_min = frame_interval_s / 60.0
+        last = (nt - 1) * self.dt_min
+        self.laws = [_law_of(s, last) for s in sources]
+        self.sources = sources
+        y = (np.arange(ny, dtype=np.float64) * pixel_size_um)[:, None]
+        x = (np.arange(nx, dtype=np.float64) * pixel_size_um)[None, :]
+        # static per-source parts: travel delay (min) and, for spirals, the angular term (rad)
+        ns = len(sources)
+        n_spirals = sum(isinstance(s, SpiralSource) for s in sources)
+        self.delay_min = np.empty((ns, ny, nx), dtype=np.float64)
+        self.angular = np.empty((n_spirals, ny, nx), dtype=np.float64)
+        self.angular_index = np.full(ns, -1, dtype=np.int64)
+        k = 0
+        for i, s in enumerate(sources):
+            if isinstance(s, PlanarSource):
+                a = math.radians(s.direction_deg)
+                dist = x * math.cos(a) - y * math.sin(a)
+            else:
+                dy, dx = y - s.y_um, x - s.x_um
+                dist = np.hypot(dx, dy)
+                if isinstance(s, SpiralSource):
+                    self.angular[k] = s.charge * np.arctan2(-dy, dx)
+                    self.angular_index[i] = k
+                    k += 1
+            self.delay_min[i] = dist / speed_um_per_min
+        self.phase0 = np.array([s.phase0 for s in sources], dtype=np.float64)
+        self.t0 = np.array([law.t0 for law in self.laws], dtype=np.float64)
+        self.t1 = np.array([law.t1 for law in self.laws], dtype=np.float64)
+        self.d = np.array([law.d for law in self.laws], dtype=np.float64)
+        self.frames_per_block = max(1, _BLOCK_ELEMENTS // (ny * nx))
+
+    def _times(self, start: int, stop: int) -> np.ndarray:
+        return np.arange(start, stop, dtype=np.float64) * self.dt_min
+
+    def block(self, start: int, stop: int) -> tuple[np.ndarray, np.ndarray]:
+        """Wrapped phase (float32, (-pi, pi]) and winner labels (int16) of
+        frames start..stop-1 (compiled kernel)."""
+        shape = (stop - start,) + self.shape_tyx[1:]
+        phase = np.empty(shape, dtype=np.float32)
+        label = np.empty(shape, dtype=np.int16)
+        _competition_kernel(
+            self._times(start, stop), self.delay_min, self.angular, self.angular_index,
+            self.phase0, self.t0, self.t1, self.d, phase, label,
+        )
+        return phase, label
+
+    def block_numpy(self, start: int, stop: int) -> tuple[np.ndarray, np.ndarray]:
+        """Readable numpy twin of `block`."""
+        t = self._times(start, stop)[:, None, None]
+        label = np.zeros((stop - start,) + self.shape_tyx[1:], dtype=np.int16)
+        best = self._unwrapped(0, t)
+        for i in range(1, len(self.sources)):
+            u = self._unwrapped(i, t)
+            label[u > best] = i  # strict: exact ties stay with the lower index
+            np.maximum(best, u, out=best)
+        # wrap into (-pi, pi]
+        best -= _TWO_PI * np.ceil((best - math.pi) / _TWO_PI)
+        phase = best.astype(np.float32)
+        pi32 = np.float32(math.pi)
+        phase[(phase <= -pi32) | (phase > pi32)] = pi32
+        return phase, label
+
+    def _unwrapped(self, i: int, t: np.ndarray) -> np.ndarray:
+        """Unwrapped phase (float64) of source i at frame times t (t, 1, 1)."""
+        u = self.laws[i].phase(t - self.delay_min[i][None])
+        k = self.angular_index[i]
+        if k >= 0:
+            u += self.angular[k][None]
+        u += self.sources[i].phase0
+        return u
+
+    def blocks(self) -> Iterator[tuple[int, np.ndarray, np.ndarray]]:
+        nt = self.shape_tyx[0]
+        for start in range(0, nt, self.frames_per_block):
+            stop = min(nt, start + self.frames_per_block)
+            phase, label = self.block(start, stop)
+            yield start, phase, label
+
+
+def _make_truth(
+    sources: tuple[Source, ...],
+    shape_tyx: tuple[int, int, int],
+    *,
+    pixel_size_um: float,
+    frame_interval_s: float,
+    speed_um_per_min: float,
+    labels_first: np.ndarray,
+    labels_last: np.ndarray,
+    area_mm2: np.ndarray,
+) -> WaveField:
+    t_min = np.arange(shape_tyx[0]) * (frame_interval_s / 60.0)
+    last = float(t_min[-1])
+    truths = []
+    cores = []
+    for i, s in enumerate(sources):
+        law = _law_of(s, last)
+        course = tuple((float(t), float(p)) for t, p in zip(t_min, law.period(t_min), strict=True))
+        drifting = law.t1 != law.t0
+        common = dict(
+            index=i,
+            period_min=s.period_min,
+            period_end_min=law.t1,
+            drift_end_min=law.d if drifting else None,
+            phase0=s.phase0,
+            wavelength_um=speed_um_per_min * s.period_min,
+            wavelength_end_um=speed_um_per_min * law.t1,
+            period_timecourse=course,
+        )
+        if isinstance(s, PlanarSource):
+            truths.append(
+                SourceTruth(kind="planar", x_um=None, y_um=None, direction_deg=s.direction_deg,
+                            charge=0, rotation=None, **common)
+            )
+        elif isinstance(s, SpiralSource):
+            rot = rotation_of_charge(s.charge)
+            truths.append(
+                SourceTruth(kind="spiral", x_um=s.x_um, y_um=s.y_um, direction_deg=None,
+                            charge=s.charge, rotation=rot, **common)
+            )
+            cores.append(Core(s.x_um, s.y_um, s.charge, rot, i))
+        else:
+            truths.append(
+                SourceTruth(kind="target", x_um=s.x_um, y_um=s.y_um, direction_deg=None,
+                            charge=0, rotation=None, **common)
+            )
+    for arr in (labels_first, labels_last, area_mm2):
+        arr.flags.writeable = False
+    return WaveField(
+        shape_tyx=shape_tyx,
+        pixel_size_um=pixel_size_um,
+        frame_interval_s=frame_interval_s,
+        speed_um_per_min=speed_um_per_min,
+        sources=tuple(truths),
+        cores=tuple(cores),
+        labels_first=labels_first,
+        labels_last=labels_last,
+        territory_area_mm2=area_mm2,
+        _inputs=sources,
+    )
+
+
+def _prepare(shape_tyx, pixel_size_um, frame_interval_s, speed_um_per_min, sources):
+    shape = _check_shape(shape_tyx)
+    cal = Calibration(pixel_size_um, frame_interval_s, "simulation", "simulation")
+    speed = _positive("speed_um_per_min", speed_um_per_min, "micrometres per minute, e.g. 350")
+    srcs = _check_sources(sources)
+    ev = _Evaluator(
+        srcs, shape, pixel_size_um=cal.pixel_size_um, frame_interval_s=cal.frame_interval_s,
+        speed_um_per_min=speed,
+    )
+    return shape, cal, speed, srcs, ev
+
+
+class _Territory:
+    """Accumulates winner maps of the first/last frame and per-frame areas."""
+
+    def __init__(self, shape_tyx: tuple[int, int, int], n_sources: int, pixel_size_um: float) -> None:
+        self.nt = shape_tyx[0]
+        self.n = n_sources
+        self.pixel_area_mm2 = (pixel_size_um / 1000.0) ** 2
+        self.area = np.zeros((self.nt, n_sources), dtype=np.float64)
+        self.first: np.ndarray | None = None
+        self.last: np.ndarray | None = None
+
+    def add(self, start: int, labels: np.ndarray) -> None:
+        for j in range(labels.shape[0]):
+            counts = np.bincount(labels[j].ravel(), minlength=self.n)
+            self.area[start + j] = counts * self.pixel_area_mm2
+        if start == 0:
+            self.first = labels[0].copy()
+        if start + labels.shape[0] == self.nt:
+            self.last = labels[-1].copy()
+
+
+def phase_field(
+    shape_tyx: Sequence[int],
+    *,
+    pixel_size_um: float,
+    frame_interval_s: float,
+    speed_um_per_min: float,
+    sources: Sequence[Source],
+) -> tuple[np.ndarray, WaveField]:
+    """Phase movie (t, y, x) float32 in (-pi, pi] of competing sources, and its truth.
+
+    pixel_size_um      micrometres per pixel.
+    frame_interval_s   seconds between frames.
+    speed_um_per_min   front speed of every wave.
+    sources            TargetSource / SpiralSource / PlanarSource instances.
+    """
+    shape, cal, speed, srcs, ev = _prepare(shape_tyx, pixel_size_um, frame_interval_s, speed_um_per_min, sources)
+    out = np.empty(shape, dtype=np.float32)
+    terr = _Territory(shape, len(srcs), cal.pixel_size_um)
+    for start, phase, labels in ev.blocks():
+        out[start : start + phase.shape[0]] = phase
+        terr.add(start, labels)
+    truth = _make_truth(
+        srcs, shape, pixel_size_um=cal.pixel_size_um, frame_interval_s=cal.frame_interval_s,
+        speed_um_per_min=speed, labels_first=terr.first, labels_last=terr.last, area_mm2=terr.area,
+    )
+    return out, truth
+
+
+def planar_wave(
+    shape_tyx: Sequence[int],
+    *,
+    pixel_size_um: float,
+    frame_interval_s: float,
+    speed_um_per_min: float,
+    period_min: float,
+    direction_deg: float,
+    phase0: float = 0.0,
+) -> tuple[np.ndarray, WaveField]:
+    """Phase movie of one plane wave travelling in `direction_deg` (degrees
+    counterclockwise from +x as displayed) at `speed_um_per_min`; see `phase_field`."""
+    return phase_field(
+        shape_tyx,
+        pixel_size_um=pixel_size_um,
+        frame_interval_s=frame_interval_s,
+        speed_um_per_min=speed_um_per_min,
+        sources=(PlanarSource(direction_deg, period_min, phase0=phase0),),
+    )
+
+
+# ----------------------------------------------------------------------------
+# pulse shape
+
+
+def pulse_exponent(pulse_width: float) -> float:
+    """Exponent p of the pulse ((1 + cos phase) / 2) ** p whose excitation
+    exceeds 0.5 for exactly the fraction `pulse_width` of each period.
+
+    e > 0.5  <=>  cos(phase) > 2 ** (1 - 1/p) - 1 = cos(pi * pulse_width)
+    so p = 1 / (1 - log2(1 + cos(pi * pulse_width))); p = 1 at pulse_width 0.5.
+    """
+    w = _finite("pulse_width", pulse_width)
+    if not 0.0 < w < 1.0:
+        raise WavesError(
+            f"pulse_width must lie strictly between 0 and 1 (fraction of the period excited; "
+            f"0.5 is sinusoidal, 0.1 a narrow pulse), got {pulse_width!r}"
+        )
+    return 1.0 / (1.0 - math.log2(1.0 + math.cos(math.pi * w)))
+
+
+def excitation(phase: np.ndarray, *, pulse_width: float = 0.5) -> np.ndarray:
+    """Excitation in [0, 1] (float32) from a phase field (radians).
+
+    e = ((1 + cos phase) / 2) ** p with p from `pulse_exponent`: peak 1 at
+    phase 0, 0 at phase pi, above 0.5 for the fraction `pulse_width` of each
+    period.  pulse_width = 0.5 gives the sinusoid 0.5 + 0.5 cos(phase);
+    smaller values give narrow pulses, larger values broad ones.
+    """
+    p = pulse_exponent(pulse_width)
+    ph = np.asarray(phase)
+    if not np.issubdtype(ph.dtype, np.floating):
+        raise WavesError(f"phase must be a floating-point array (radians), got dtype {ph.dtype}")
+    out = np.empty(ph.shape, dtype=np.float32)
+    flat_in = ph.reshape(-1)
+    flat_out = out.reshape(-1)
+    p32 = np.float32(p)
+    for start in range(0, flat_in.size, _BLOCK_ELEMENTS):
+        stop = min(flat_in.size, start + _BLOCK_ELEMENTS)
+        block = flat_out[start:stop]
+        np.cos(flat_in[start:stop].astype(np.float32, copy=False), out=block)
+        block *= np.float32(0.5)
+        block += np.float32(0.5)
+        np.clip(block, 0.0, 1.0, out=block)
+        if p != 1.0:
+            np.power(block, p32, out=block)
+    return out
+
+
+# ----------------------------------------------------------------------------
+# movie
+
+
+@dataclass(frozen=True, eq=False)
+class SyntheticMovie:
+    """A rendered synthetic movie with its truth.
+
+    data         (t, y, x) uint8 or uint16 camera-like frames.
+    calibration  pixel size and frame interval, origin 'simulation'.
+    truth        the `WaveField` truth.
+    excitation   the clean excitation field (t, y, x) float32, or None unless asked for.
+    pulse_width  fraction of the period excited.
+    style        the `DarkfieldStyle` used.
+    seed         seed of the renderer.
+    """
+
+    data: np.ndarray = field(repr=False)
+    calibration: Calibration
+    truth: WaveField
+    excitation: np.ndarray | None = field(repr=False)
+    pulse_width: float
+    style: DarkfieldStyle
+    seed: int
+
+
+def synthetic_movie(
+    shape_tyx: Sequence[int],
+    *,
+    pixel_size_um: float,
+    frame_interval_s: float,
+    speed_um_per_min: float,
+    sources: Sequence[Source],
+    pulse_width: float = 0.5,
+    style: DarkfieldStyle = _DEFAULT_STYLE,
+    seed: int = 0,
+    keep_excitation: bool = False,
+) -> SyntheticMovie:
+    """Dark-field-like movie of competing sources with known truth.
+
+    The phase is computed in frame blocks, turned into excitation with
+    `excitation(phase, pulse_width=...)` and rendered by
+    `DarkfieldRenderer(shape_yx, style=style, seed=seed)`, so no movie-sized
+    float temporaries are held (unless `keep_excitation`).
+    """
+    pulse_exponent(pulse_width)  # validates before any work
+    shape, cal, speed, srcs, ev = _prepare(shape_tyx, pixel_size_um, frame_interval_s, speed_um_per_min, sources)
+    renderer = DarkfieldRenderer(shape[1:], style=style, seed=seed)
+    data = np.empty(shape, dtype=style.dtype)
+    kept = np.empty(shape, dtype=np.float32) if keep_excitation else None
+    terr = _Territory(shape, len(srcs), cal.pixel_size_um)
+    for start, phase, labels in ev.blocks():
+        exc = excitation(phase, pulse_width=pulse_width)
+        for j in range(exc.shape[0]):
+            data[start + j] = renderer.frame(exc[j], start + j)
+        if kept is not None:
+            kept[start : start + exc.shape[0]] = exc
+        terr.add(start, labels)
+    truth = _make_truth(
+        srcs, shape, pixel_size_um=cal.pixel_size_um, frame_interval_s=cal.frame_interval_s,
+        speed_um_per_min=speed, labels_first=terr.first, labels_last=terr.last, area_mm2=terr.area,
+    )
+    return SyntheticMovie(
+        data=data, calibration=cal, truth=truth, excitation=kept, pulse_width=float(pulse_width),
+        style=style, seed=int(seed),
+    )
