@@ -1,0 +1,100 @@
+"""Writing an analysis to a folder: summary.json, CSV tables, calibrated maps.
+
+The analysis is computed in full before anything is written, and every file
+goes through a temporary file and a rename, so a failure never leaves a
+half-written file or destroys an earlier result.  summary.json is written
+last: its presence means the folder is complete.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import pathlib
+
+import numpy as np
+
+from waves import io
+from waves.errors import InputError
+
+__all__ = ["write_table_csv", "read_table_csv", "write_analysis", "MAP_FILES", "TABLE_FILES"]
+
+MAP_FILES = {
+    "period_min": "period_min.tif",
+    "front_speed_um_per_min": "front_speed_um_per_min.tif",
+    "front_speed_activation_fit_um_per_min": "front_speed_fit_um_per_min.tif",
+    "wavelength_um": "wavelength_um.tif",
+    "direction_deg": "direction_deg.tif",
+    "amplitude": "amplitude.tif",
+    "mean_image": "mean_image.tif",
+}
+
+TABLE_FILES = {
+    "cores_per_frame": "cores_per_frame.csv",
+    "core_tracks": "core_tracks.csv",
+    "period_timecourse": "period_timecourse.csv",
+    "dispersion": "dispersion.csv",
+}
+
+
+def _cell(v) -> str:
+    if isinstance(v, (float, np.floating)):
+        return "" if not math.isfinite(float(v)) else repr(float(v))
+    if isinstance(v, (np.integer, int)) and not isinstance(v, bool):
+        return str(int(v))
+    return str(v)
+
+
+def write_table_csv(path, table: dict) -> pathlib.Path:
+    """Write a column table (dict of equal-length 1-D arrays) as CSV, atomically.
+    Empty tables keep their header.  NaN is written as an empty cell."""
+    cols = list(table)
+    arrays = [np.asarray(table[c]) for c in cols]
+    n = {len(a) for a in arrays}
+    if len(n) > 1:
+        raise InputError(f"table columns differ in length: {dict(zip(cols, map(len, arrays)))}")
+    rows = len(arrays[0]) if arrays else 0
+    with io.atomic_output(path, "w") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(cols)
+        for i in range(rows):
+            w.writerow([_cell(a[i]) for a in arrays])
+    return pathlib.Path(path)
+
+
+def read_table_csv(path) -> dict:
+    """Read a CSV written by `write_table_csv` back as columns of strings."""
+    with open(path, encoding="utf-8", newline="") as fh:
+        r = csv.reader(fh)
+        header = next(r)
+        cols = {h: [] for h in header}
+        for row in r:
+            for h, v in zip(header, row):
+                cols[h].append(v)
+    return cols
+
+
+def write_analysis(analysis, out_dir, *, source: dict) -> pathlib.Path:
+    """Write maps, tables and summary.json of an `Analysis` into `out_dir`.
+
+    `source` is the summary's {path, sha256, shape_tyx, dtype}.  Returns the
+    path of summary.json.
+    """
+    out = pathlib.Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise InputError(f"--out {out} exists and is not a folder; give a folder to write into")
+    out.mkdir(parents=True, exist_ok=True)
+    px = float(analysis.summary["calibration"]["pixel_size_um"])
+    for key, name in MAP_FILES.items():
+        if key in analysis.maps:
+            io.write_map(out / name, analysis.maps[key], pixel_size_um=px, metadata={"quantity": key})
+    for key, name in TABLE_FILES.items():
+        if key in analysis.tables:
+            write_table_csv(out / name, analysis.tables[key])
+    summary = dict(analysis.summary)
+    summary["source"] = source
+    summary["files"] = sorted(
+        [MAP_FILES[k] for k in MAP_FILES if k in analysis.maps]
+        + [TABLE_FILES[k] for k in TABLE_FILES if k in analysis.tables]
+    )
+    return io.write_json(out / "summary.json", summary)
