@@ -396,16 +396,6 @@ def test_binning_equals_reshape_mean(imagej_stack, rng, factor):
     assert any("trims" in w for w in stack.warnings)
 
 
-@pytest.mark.parametrize("dtype", ["uint8", "uint16", "float32", "float64", "int16"])
-@pytest.mark.parametrize("factor", [1, 2, 5])
-def test_bin_kernel_matches_numpy_twin(rng, dtype, factor):
-    block = (rng.random((3, 23, 31)) * 1000).astype(dtype)
-    compiled = io._bin_frames(block, factor)
-    twin = io._bin_block(block, factor)
-    assert compiled.dtype == np.float32 and compiled.shape == twin.shape
-    np.testing.assert_allclose(compiled, twin, rtol=1e-6)
-
-
 def test_binning_works_in_bounded_blocks(imagej_stack, rng):
     import tracemalloc
 

@@ -11,6 +11,7 @@ from skimage.measure import block_reduce
 
 from waves.errors import InputError, WavesError
 from waves.preprocess import (
+    bin_frames_numpy,
     DEFAULT_PERIOD_MIN_RANGE,
     apply_drift,
     apply_gain,
@@ -591,3 +592,15 @@ def test_dish_mask_with_explicit_threshold():
     disc = np.hypot(yy - 30, xx - 30) < 20
     mask = dish_mask(np.where(disc, 100.0, 0.0), threshold=50.0, smooth_sigma_px=0.0)
     np.testing.assert_array_equal(mask, disc)
+
+
+@pytest.mark.parametrize("dtype", ["uint8", "uint16", "float32", "float64", "int16", "bool"])
+@pytest.mark.parametrize("factor", [2, 5])
+def test_bin_kernel_matches_numpy_twin(dtype, factor):
+    # STYLE.md practice: the compiled kernel against its numpy twin
+    rng = np.random.default_rng(11)
+    block = (rng.random((70, 23, 31)) * 1000).astype(dtype)
+    compiled = bin_frames(block, factor)
+    twin = bin_frames_numpy(block, factor)
+    assert compiled.dtype == np.float32 and compiled.shape == twin.shape
+    np.testing.assert_allclose(compiled, twin, rtol=1e-6)

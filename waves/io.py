@@ -59,9 +59,9 @@ from typing import IO, Any
 
 import numpy as np
 import tifffile
-from numba import njit
 
 from waves.errors import CalibrationError, InputError, WavesError
+from waves.preprocess import bin_frames
 from waves.units import Calibration, length_to_um, resolve_calibration, time_to_s
 
 __all__ = [
@@ -942,46 +942,6 @@ def _luminance(rgb: np.ndarray) -> np.ndarray:
     return r * x[..., 0] + g * x[..., 1] + b * x[..., 2]
 
 
-def _bin_block(block: np.ndarray, factor: int) -> np.ndarray:
-    """Block mean over factor x factor pixels, float64 (numpy twin of _bin_kernel).
-
-    Rows and columns beyond a multiple of `factor` are dropped."""
-    n, ny, nx = block.shape
-    ny, nx = ny // factor, nx // factor
-    trimmed = block[:, : ny * factor, : nx * factor].astype(np.float64)
-    return trimmed.reshape(n, ny, factor, nx, factor).mean(axis=(2, 4))
-
-
-@njit(cache=True, nogil=True)
-def _bin_kernel(block: np.ndarray, factor: int, out: np.ndarray) -> None:  # pragma: no cover - compiled
-    """out[t, i, j] = mean of block[t, i*f:(i+1)*f, j*f:(j+1)*f], summed in float64."""
-    n, ny, nx = out.shape
-    inv = 1.0 / (factor * factor)
-    row = np.empty(nx, dtype=np.float64)
-    for t in range(n):
-        for i in range(ny):
-            row[:] = 0.0
-            for di in range(factor):
-                r = i * factor + di
-                for j in range(nx):
-                    acc = 0.0
-                    c0 = j * factor
-                    for dj in range(factor):
-                        acc += block[t, r, c0 + dj]
-                    row[j] += acc
-            for j in range(nx):
-                out[t, i, j] = row[j] * inv
-
-
-def _bin_frames(block: np.ndarray, factor: int) -> np.ndarray:
-    """Binned float32 frames of a (n, y, x) block through the compiled kernel."""
-    n, ny, nx = block.shape
-    out = np.empty((n, ny // factor, nx // factor), dtype=np.float32)
-    src = np.ascontiguousarray(block if block.dtype != np.bool_ else block.view(np.uint8))
-    _bin_kernel(src, int(factor), out)
-    return out
-
-
 def _frames_per_block(layout: _Layout) -> int:
     per_frame = layout.ny * layout.nx * max(1, layout.samples) * 8
     return max(1, _BLOCK_BYTES // max(1, per_frame))
@@ -1219,7 +1179,7 @@ def read_stack(
                         "hold exactly; rescale the stack to 16-bit first (e.g. ImageJ Image > Type > 16-bit)"
                     )
                 if factor > 1:
-                    block = _bin_frames(block, factor)
+                    block = bin_frames(block, factor)
                 data[k : k + len(idx)] = block
         if bad:
             raise _nonfinite_error(layout.path, bad, layout.n_frames)

@@ -39,10 +39,10 @@ import math
 
 import numpy as np
 import scipy.ndimage as ndi
-import scipy.signal
-from numba import njit
-from skimage.filters import threshold_otsu
-from skimage.registration import phase_cross_correlation
+from numba import njit, prange
+
+# scipy.signal and scikit-image cost about a second to import; they are
+# imported where they are used (band-pass, Otsu threshold, registration).
 
 from waves.errors import InputError, WavesError
 
@@ -81,6 +81,12 @@ _TRUNCATE = 4.0
 # --------------------------------------------------------------------------
 # input checks
 # --------------------------------------------------------------------------
+
+
+def _signal():
+    import scipy.signal
+
+    return scipy.signal
 
 
 def _as_real_array(data, name: str, ndims: tuple[int, ...], *, check_finite: bool = True):
@@ -159,12 +165,47 @@ def bin_frames(frames, factor: int) -> np.ndarray:
         )
     if f == 1:
         return _float32(arr).copy() if arr.dtype == np.float32 else _float32(arr)
+    src = arr[None] if arr.ndim == 2 else arr
+    out = np.empty((src.shape[0], ny // f, nx // f), dtype=np.float32)
+    for t0 in range(0, src.shape[0], 64):  # bounded copies of memory-mapped input
+        block = np.ascontiguousarray(src[t0 : t0 + 64])
+        if block.dtype == np.bool_:
+            block = block.view(np.uint8)
+        _bin_kernel(block, f, out[t0 : t0 + 64])
+    return out[0] if arr.ndim == 2 else out
+
+
+def bin_frames_numpy(frames, factor: int) -> np.ndarray:
+    """Readable numpy twin of `bin_frames` (reshape and mean in float64)."""
+    arr = np.asarray(frames)
+    f = int(factor)
+    ny, nx = arr.shape[-2:]
     by, bx = ny // f, nx // f
     lead = arr.shape[:-2]
-    trimmed = arr[..., : by * f, : bx * f]
-    blocks = trimmed.reshape(lead + (by, f, bx, f))
+    blocks = arr[..., : by * f, : bx * f].reshape(lead + (by, f, bx, f))
     nd = blocks.ndim
     return blocks.mean(axis=(nd - 3, nd - 1), dtype=np.float64).astype(np.float32)
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def _bin_kernel(block, factor, out):  # pragma: no cover - compiled
+    """out[t, i, j] = mean of block[t, i*f:(i+1)*f, j*f:(j+1)*f], summed in float64."""
+    n, ny, nx = out.shape
+    inv = 1.0 / (factor * factor)
+    for t in prange(n):
+        row = np.empty(nx, dtype=np.float64)
+        for i in range(ny):
+            row[:] = 0.0
+            for di in range(factor):
+                r = i * factor + di
+                for j in range(nx):
+                    acc = 0.0
+                    c0 = j * factor
+                    for dj in range(factor):
+                        acc += block[t, r, c0 + dj]
+                    row[j] += acc
+            for j in range(nx):
+                out[t, i, j] = row[j] * inv
 
 
 # --------------------------------------------------------------------------
@@ -224,6 +265,8 @@ def _register(ref_tex: np.ndarray, frame: np.ndarray, upsample: int, texture_sig
             f"frame {index} holds NaN or infinite values; replace them before registering"
         )
     moving = _checked_texture(_float32(frame), texture_sigma_px, f"frame {index}")
+    from skimage.registration import phase_cross_correlation
+
     shift, _, _ = phase_cross_correlation(
         ref_tex, moving, upsample_factor=upsample, normalization=None
     )
@@ -326,6 +369,8 @@ def estimate_drift(
             ref, texture_sigma_px, f"the reference of frames {start}-{stop - 1}"
         )
         if prev_tex is not None:
+            from skimage.registration import phase_cross_correlation
+
             shift, _, _ = phase_cross_correlation(
                 prev_tex, ref_tex, upsample_factor=upsample, normalization=None
             )
@@ -574,7 +619,7 @@ def butterworth_sos(
     designed in cycles per frame.  `order` is per edge (2 order sections)."""
     order = _positive(order, "filter order", integer=True)
     f_lo, f_hi = _band_frequencies(period_min_range, frame_interval_s, None)
-    return scipy.signal.butter(order, [f_lo, f_hi], btype="bandpass", output="sos", fs=1.0)
+    return _signal().butter(order, [f_lo, f_hi], btype="bandpass", output="sos", fs=1.0)
 
 
 def bandpass_padlen(n_frames: int, *, frame_interval_s: float, period_min_range) -> int:
@@ -607,7 +652,7 @@ def bandpass_settle_frames(
     n = int(20 * math.ceil(1.0 / f_lo)) + 16
     impulse = np.zeros(n)
     impulse[0] = 1.0
-    h = np.abs(scipy.signal.sosfilt(sos, impulse))
+    h = np.abs(_signal().sosfilt(sos, impulse))
     above = np.nonzero(h > tol * h.max())[0]
     return int(above[-1]) + 1
 
@@ -708,7 +753,7 @@ def sosfiltfilt_numba(
             f"too few frames: padding of {padlen} frames needs more than {padlen} frames, got {n}"
         )
     ext = _pad_time(x2, padtype, padlen)  # a fresh C-ordered array: the kernel overwrites it
-    zi = np.ascontiguousarray(scipy.signal.sosfilt_zi(sos))
+    zi = np.ascontiguousarray(_signal().sosfilt_zi(sos))
     out = np.empty((n, x2.shape[1]), dtype=np.float32)
     _sosfiltfilt_kernel(ext, sos, zi, out, padlen)
     return out.reshape(shape)
@@ -753,7 +798,7 @@ def bandpass_time(
         raise WavesError(f"padtype must be 'odd', 'even', 'constant' or None, got {padtype!r}")
     if method == "numba":
         return sosfiltfilt_numba(sos, arr, padtype=padtype, padlen=padlen)
-    y = scipy.signal.sosfiltfilt(
+    y = _signal().sosfiltfilt(
         sos, np.asarray(arr, dtype=np.float64), axis=0, padtype=padtype, padlen=padlen
     )
     return y.astype(np.float32)
@@ -851,6 +896,8 @@ def signal_mask(
         if logs.max() - logs.min() < 1e-12:
             mask = positive
         else:
+            from skimage.filters import threshold_otsu
+
             t = threshold_otsu(logs)
             low, high = logs[logs <= t], logs[logs > t]
             if (
@@ -894,6 +941,8 @@ def dish_mask(
     if threshold is None:
         if x.max() - x.min() <= 1e-12 * max(1.0, abs(x.max())):
             return np.ones(x.shape, dtype=bool)
+        from skimage.filters import threshold_otsu
+
         t = threshold_otsu(x)
         hi, lo = x[x > t].mean(), x[x <= t].mean()
         # the surround is one class, the dish the other, whichever is darker

@@ -234,13 +234,25 @@ def _fit_kernel(times, counts, radius, max_dt, min_points, out_speed, out_dir):
                         cc = c + dc
                         if cc < 0 or cc >= nx:
                             continue
+                        # arrivals are sorted: binary search for the closest
+                        n_rc = counts[rr, cc]
                         best = 1e30
                         tb = 0.0
-                        for j in range(counts[rr, cc]):
-                            d = abs(times[rr, cc, j] - t0)
-                            if d < best:
-                                best = d
-                                tb = times[rr, cc, j]
+                        if n_rc > 0:
+                            lo = 0
+                            hi = n_rc
+                            while lo < hi:
+                                mid = (lo + hi) // 2
+                                if times[rr, cc, mid] < t0:
+                                    lo = mid + 1
+                                else:
+                                    hi = mid
+                            for j in (lo - 1, lo):
+                                if 0 <= j < n_rc:
+                                    d = abs(times[rr, cc, j] - t0)
+                                    if d < best:
+                                        best = d
+                                        tb = times[rr, cc, j]
                         if best <= max_dt:
                             x = float(dc)
                             y = float(dr)
