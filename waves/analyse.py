@@ -440,6 +440,12 @@ def analyse_movie(
                 f"{options.period_band_min[0]:g}-{options.period_band_min[1]:g} min "
                 f"({100 * clear_frac:.0f} % of sampled pixels show a clear spectral peak); "
                 "period, speed and cores are not reported"
+                + (
+                    f"; the movie lasts {nt * dt_min:.1f} min, less than two periods at the band's upper "
+                    "end: too few frames to find slow waves"
+                    if nt * dt_min < 2 * options.period_band_min[1]
+                    else ""
+                )
             )
             grid = _grid(cal, factor)
             return _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)

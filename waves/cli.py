@@ -183,9 +183,8 @@ def _parse_frames(text: str | None):
 
 
 def _cmd_analyse(args: argparse.Namespace) -> int:
-    from waves import io
-    from waves.analyse import DEFAULT_PERIOD_BAND_MIN, AnalysisOptions, analyse_movie
-    from waves.result import write_analysis
+    from waves.analyse import DEFAULT_PERIOD_BAND_MIN, AnalysisOptions
+    from waves.result import analyse_file
 
     options = AnalysisOptions(
         period_band_min=tuple(args.period_band) if args.period_band else DEFAULT_PERIOD_BAND_MIN,
@@ -194,34 +193,19 @@ def _cmd_analyse(args: argparse.Namespace) -> int:
         smooth_sigma_um=args.smooth,
         memory_budget_mb=args.memory_mb,
     )
-    stack = io.read_stack(
+    result = analyse_file(
         args.stack,
+        out=args.out,
+        options=options,
         frames=_parse_frames(args.frames),
         bin=args.bin,
         channel=args.channel,
         zslice=args.zslice,
         pixel_size_um=args.pixel_size_um,
         frame_interval_s=args.frame_interval_s,
-        min_frames=8,
-    )
-    out = pathlib.Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise WavesError(f"--out {out} exists and is not a folder; give a folder to write into")
-    out.mkdir(parents=True, exist_ok=True)
-    result = analyse_movie(
-        stack.data,
-        calibration=stack.calibration,
-        options=options,
-        scratch_dir=out,
         progress=not args.quiet,
     )
-    source = {
-        "path": str(args.stack),
-        "sha256": io.file_sha256(args.stack),
-        "shape_tyx": list(stack.shape_tyx),
-        "dtype": str(stack.data.dtype),
-    }
-    summary_path = write_analysis(result, out, source=source)
+    summary_path = pathlib.Path(args.out) / "summary.json"
     s = result.summary
 
     def fmt(q, unit):

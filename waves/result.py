@@ -17,7 +17,14 @@ import numpy as np
 from waves import io
 from waves.errors import InputError
 
-__all__ = ["write_table_csv", "read_table_csv", "write_analysis", "MAP_FILES", "TABLE_FILES"]
+__all__ = [
+    "write_table_csv",
+    "read_table_csv",
+    "write_analysis",
+    "analyse_file",
+    "MAP_FILES",
+    "TABLE_FILES",
+]
 
 MAP_FILES = {
     "period_min": "period_min.tif",
@@ -74,6 +81,68 @@ def read_table_csv(path) -> dict:
     return cols
 
 
+def source_record(path, stack) -> dict:
+    """The summary's `source` block: {path, sha256, shape_tyx, dtype}."""
+    return {
+        "path": str(path),
+        "sha256": io.file_sha256(path),
+        "shape_tyx": list(stack.shape_tyx),
+        "dtype": str(stack.data.dtype),
+    }
+
+
+def analyse_file(
+    path,
+    *,
+    out=None,
+    options=None,
+    frames=None,
+    bin: int = 1,  # noqa: A002 - the name users know from ImageJ
+    channel: int | None = None,
+    zslice: int | None = None,
+    pixel_size_um: float | None = None,
+    frame_interval_s: float | None = None,
+    progress: bool = False,
+):
+    """Read a stack, analyse it and, when `out` is given, write the results
+    folder (summary.json, CSV tables, calibrated maps).  Returns the
+    `waves.analyse.Analysis` with its summary's `source` filled in.
+
+    Nothing is written until the analysis has finished, so a failure leaves
+    an earlier result in `out` as it was.
+    """
+    from waves.analyse import AnalysisOptions, analyse_movie
+
+    stack = io.read_stack(
+        path,
+        frames=frames,
+        bin=bin,
+        channel=channel,
+        zslice=zslice,
+        pixel_size_um=pixel_size_um,
+        frame_interval_s=frame_interval_s,
+        min_frames=8,
+    )
+    scratch = None
+    if out is not None:
+        scratch = pathlib.Path(out)
+        if scratch.exists() and not scratch.is_dir():
+            raise InputError(f"--out {scratch} exists and is not a folder; give a folder to write into")
+        scratch.mkdir(parents=True, exist_ok=True)
+    analysis = analyse_movie(
+        stack.data,
+        calibration=stack.calibration,
+        options=options if options is not None else AnalysisOptions(),
+        scratch_dir=scratch,
+        progress=progress,
+    )
+    analysis.summary["source"] = source_record(path, stack)
+    analysis.summary["warnings"] = list(stack.warnings) + list(analysis.summary["warnings"])
+    if out is not None:
+        write_analysis(analysis, out, source=analysis.summary["source"])
+    return analysis
+
+
 def write_analysis(analysis, out_dir, *, source: dict) -> pathlib.Path:
     """Write maps, tables and summary.json of an `Analysis` into `out_dir`.
 
@@ -84,10 +153,13 @@ def write_analysis(analysis, out_dir, *, source: dict) -> pathlib.Path:
     if out.exists() and not out.is_dir():
         raise InputError(f"--out {out} exists and is not a folder; give a folder to write into")
     out.mkdir(parents=True, exist_ok=True)
-    px = float(analysis.summary["calibration"]["pixel_size_um"])
+    # maps are on the analysis grid: its pixel size, and where its pixel (0, 0) sits
+    grid = analysis.summary.get("analysis", {}).get("grid")
+    px = float(grid["pixel_size_um"] if grid else analysis.summary["calibration"]["pixel_size_um"])
+    meta = {"origin_x_um": grid["origin_x_um"], "origin_y_um": grid["origin_y_um"]} if grid else {}
     for key, name in MAP_FILES.items():
         if key in analysis.maps:
-            io.write_map(out / name, analysis.maps[key], pixel_size_um=px, metadata={"quantity": key})
+            io.write_map(out / name, analysis.maps[key], pixel_size_um=px, metadata={"quantity": key, **meta})
     for key, name in TABLE_FILES.items():
         if key in analysis.tables:
             write_table_csv(out / name, analysis.tables[key])
