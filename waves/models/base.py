@@ -105,7 +105,7 @@ __all__ = [
 
 # fastmath flags that keep NaN/inf semantics (no 'nnan', no 'ninf'), so a run
 # that blows up is still seen as non-finite.
-FASTMATH = {"contract", "nsz", "arcp"}
+FASTMATH = {"contract", "nsz"}  # no "arcp": cached and fresh builds must agree bit for bit
 
 # grids smaller than this (512 x 512) run on one thread by default: a parallel region per
 # step costs a barrier, and on a busy machine a descheduled worker stalls every

@@ -729,6 +729,18 @@ def excitation_from_g(g, *, g_half: float = 1.0) -> np.ndarray:
     return (g / (g + np.float32(g_half))).astype(np.float32)
 
 
+def _initial_state(params, shape_yx, *, spacing, kind, rotation, center_yx, rng, dt, diffusion):
+    """SPEC hook: the relay's own broken wave for kind 'spiral' (its wake is
+    far wider than the framework's generic refractory strip); None otherwise,
+    so the generic initial conditions apply."""
+    if kind != "spiral":
+        return None
+    return broken_wave_state(
+        RelayParams(**params), shape_yx, spacing=spacing, core_yx=center_yx, rotation=rotation,
+        dt=dt, diffusion=diffusion,
+    )
+
+
 SPEC = ModelSpec(
     name="relay",
     description="Martiel-Goldbeter cAMP relay (receptor desensitisation) in a cell field",
@@ -747,6 +759,7 @@ SPEC = ModelSpec(
     spacing=20.0 / LENGTH_UNIT_UM,
     dt_fraction=0.5,
     diffusion=DIFFUSION_UM2_PER_MIN / LENGTH_UNIT_UM**2,
+    initial_state=_initial_state,
 )
 
 
