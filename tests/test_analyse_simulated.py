@@ -32,3 +32,15 @@ def test_barkley_spiral_period_and_core(rotation):
     assert s["period_min"]["median"] == pytest.approx(truth_period, rel=0.05)
     rotations = {c["rotation"] for c in s["spiral_cores"]}
     assert rotations == {rotation}
+
+
+def test_sidecar_truth_holds_clean_field_cores(tmp_path):
+    # the sidecar's core truth is measured on the clean field; the rotation
+    # must be the one the broken-wave start was given
+    import json
+
+    out = tmp_path / "fhn.tif"
+    simulate("fhn", out=out, size=(128, 128), minutes=60.0, rotation="clockwise", progress=False)
+    truth = json.loads(out.with_suffix(".json").read_text())["truth"]["analysis"]
+    assert [c["rotation"] for c in truth["spiral_cores"]] == ["clockwise"]
+    assert truth["spiral_cores"][0]["charge"] == 1  # +1 turns clockwise as displayed

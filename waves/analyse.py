@@ -49,7 +49,7 @@ from waves.phase.analytic import analytic_signal, passband_from_periods, phase_a
 from waves.phase.charge import plaquette_charge
 from waves.units import Calibration
 
-__all__ = ["AnalysisOptions", "Analysis", "analyse_movie", "DEFAULT_PERIOD_BAND_MIN"]
+__all__ = ["AnalysisOptions", "Analysis", "analyse_movie", "clean_buffer", "DEFAULT_PERIOD_BAND_MIN"]
 
 # Trade-sensible default: aggregating fields show periods of about 8-10 min
 # early falling to 2-4 min late (REFERENCES.md, [memory]); 6 min is typical.
@@ -190,6 +190,10 @@ class _Movie:
         del m
         return out
 
+    def view(self) -> np.ndarray:
+        """The whole movie as an array (in memory) or a read-only memory map."""
+        return self._map("r")
+
     def close(self) -> None:
         self._array = None
         if self.path is not None:
@@ -197,6 +201,15 @@ class _Movie:
                 self.path.unlink()
             except FileNotFoundError:
                 pass
+
+
+def clean_buffer(shape: tuple[int, int, int], *, folder: pathlib.Path | None = None,
+                 max_memory_bytes: float = 1e9) -> _Movie:
+    """A float32 (t, y, x) buffer for a movie written frame by frame (e.g. the
+    simulator's clean field): in memory up to `max_memory_bytes`, else a
+    scratch file in `folder` that `close()` deletes."""
+    nbytes = float(np.prod(shape)) * 4
+    return _Movie(tuple(int(v) for v in shape), in_memory=nbytes <= max_memory_bytes, folder=folder)
 
 
 # --------------------------------------------------------------------------- passes 1 and 2

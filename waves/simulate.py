@@ -213,7 +213,8 @@ class _Output:
     """Turns simulation states into output frames and sends them on."""
 
     def __init__(self, *, spec, observable, dtype, render, style, shape_yx, oversample, seed,
-                 writer, keep):
+                 writer, keep, clean=None):
+        self.clean = clean
         self.var = spec.variables.index(observable)
         self.lo, self.hi = spec.observable_ranges[observable]
         self.dtype = dtype
@@ -229,6 +230,8 @@ class _Output:
 
     def emit(self, state: np.ndarray) -> None:
         field = _block_mean(state[self.var], self.oversample)
+        if self.clean is not None:
+            self.clean.write(self.count, field[None].astype(np.float32))
         if self.renderer is not None:
             e = np.clip((field - self.lo) / (self.hi - self.lo), 0.0, 1.0).astype(np.float32)
             frame = self.renderer.frame(e, self.count)
@@ -275,9 +278,14 @@ def simulate(
     oversample: int | None = None,
     probes_um: Sequence[tuple[float, float]] | None = None,
     threads: int | None = None,
+    truth_analysis: bool = True,
     progress: bool = False,
 ) -> SimulationResult:
     """Run `model` and write (or return) a calibrated movie with its ground truth.
+
+    truth_analysis: also run the analyser (`waves.analyse.analyse_movie`) on
+    the clean observable, before rendering and noise, and record the spiral
+    cores, period, front speed and wavelength it finds as ground truth.
 
     size: N or (rows, cols) output pixels.  pixel_size_um: output pixel size
     (default: the model's grid step times its length scale).  minutes:
@@ -621,10 +629,15 @@ def simulate(
             from tqdm import tqdm
 
             bar = tqdm(total=n_frames, unit="frame", file=sys.stderr, desc=f"simulate {spec.name}")
+        clean = None
+        if truth_analysis:
+            from waves.analyse import clean_buffer
+
+            clean = clean_buffer((n_frames, ny_out, nx_out), folder=None if path is None else path.parent)
         emitter = _Output(spec=spec, observable=observable, dtype=dtype, render=render,
                           style=style,
                           shape_yx=(ny_out, nx_out), oversample=oversample, seed=seed,
-                          writer=writer, keep=keep)
+                          writer=writer, keep=keep, clean=clean)
         emitter.emit(integ.state)
         if bar is not None:
             bar.update(1)
@@ -667,6 +680,8 @@ def simulate(
     except BaseException:
         if writer is not None:
             writer.abort()
+        if clean is not None:
+            clean.close()
         raise
     finally:
         if bar is not None:
@@ -701,6 +716,11 @@ def simulate(
         "period_min": _summary([p * to_min for p in periods_model]),
         "probes": probe_rows,
     }
+    if clean is not None:
+        try:
+            truth["analysis"] = _clean_field_truth(clean, calibration)
+        finally:
+            clean.close()
     updates = grid.n_cells * step
     rate = updates / kernel_time if kernel_time > 0 else float("nan")
     wall = time.perf_counter() - t_wall0
@@ -717,6 +737,27 @@ def simulate(
         calibration=calibration, n_frames=n_frames, final_state=integ.state.copy(),
         wall_time_s=wall, cell_updates_per_s=rate,
     )
+
+
+def _clean_field_truth(clean, calibration: Calibration) -> dict:
+    """The analyser's findings on the clean observable: the same functions
+    that measure recorded stacks, on the field before rendering and noise."""
+    from waves.analyse import analyse_movie
+
+    method = "waves.analyse.analyse_movie on the clean observable (before rendering and noise)"
+    try:
+        s = analyse_movie(clean.view(), calibration=calibration).summary
+    except WavesError as exc:
+        return {"method": method, "error": " ".join(str(exc).split())}
+    return {
+        "method": method,
+        "spiral_cores": s["spiral_cores"],
+        "period_min": s["period_min"],
+        "front_speed_um_per_min": s["front_speed_um_per_min"],
+        "wavelength_um": s["wavelength_um"],
+        "period_timecourse": s["period_timecourse"],
+        "warnings": s["warnings"],
+    }
 
 
 # --------------------------------------------------------------------------- CLI
@@ -810,6 +851,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "random period in the range and a random first firing")
     parser.add_argument("--threads", type=int,
                         help="compiled-kernel threads (default: automatic)")
+    parser.add_argument("--no-truth-analysis", action="store_true",
+                        help="skip analysing the clean field for ground-truth cores and speed")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -856,6 +899,7 @@ def run_from_args(args: argparse.Namespace) -> int:
         heterogeneity=hets, pacemakers=pacers, ramps=ramps, noise=args.noise,
         observable=args.observable, dtype=args.dtype, render=args.render,
         darkfield_style=style, center_um=args.center, threads=args.threads,
+        truth_analysis=not args.no_truth_analysis,
         random_pacemakers=spontaneous,
         progress=not args.quiet,
     )
