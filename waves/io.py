@@ -62,7 +62,7 @@ import tifffile
 
 from waves.errors import CalibrationError, InputError, WavesError
 from waves.preprocess import bin_frames
-from waves.units import Calibration, length_to_um, resolve_calibration, time_to_s
+from waves.units import Calibration, check_positive, length_to_um, resolve_calibration, time_to_s
 
 __all__ = [
     "StackInfo",
@@ -321,15 +321,7 @@ def _check_option(value: float | None, name: str, flag: str) -> float | None:
         return None
     if isinstance(value, bool):
         raise CalibrationError(f"{name} must be a number, got {value!r}; give it with {flag}")
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise CalibrationError(f"{name} must be a number, got {value!r}; give it with {flag}") from None
-    if not math.isfinite(v) or v <= 0:
-        raise CalibrationError(
-            f"{name} must be a positive finite number, got {value!r}; give it with {flag}"
-        )
-    return v
+    return check_positive(name, value, flag)
 
 
 def _check_index(value: int | None, name: str) -> int | None:

@@ -24,6 +24,7 @@ __all__ = [
     "normalise_length_unit",
     "normalise_time_unit",
     "resolve_calibration",
+    "check_positive",
     "ORIGINS",
 ]
 
@@ -141,11 +142,12 @@ def time_to_s(value: float, unit: str) -> float:
     return float(value) * TIME_UNITS_S[normalise_time_unit(unit)]
 
 
-def _check_positive(name: str, value: float, option: str) -> float:
+def check_positive(name: str, value: float, option: str) -> float:
+    """`value` as a positive finite float, or a CalibrationError naming `option`."""
     try:
         value = float(value)
     except (TypeError, ValueError):
-        raise CalibrationError(f"{name} must be a number, got {value!r}") from None
+        raise CalibrationError(f"{name} must be a number, got {value!r}; give it with {option}") from None
     if not math.isfinite(value) or value <= 0:
         raise CalibrationError(
             f"{name} must be a positive finite number, got {value!r}; give it with {option}"
@@ -171,12 +173,12 @@ class Calibration:
         object.__setattr__(
             self,
             "pixel_size_um",
-            _check_positive("pixel size (um)", self.pixel_size_um, "--pixel-size UM"),
+            check_positive("pixel size (um)", self.pixel_size_um, "--pixel-size UM"),
         )
         object.__setattr__(
             self,
             "frame_interval_s",
-            _check_positive("frame interval (s)", self.frame_interval_s, "--frame-interval S"),
+            check_positive("frame interval (s)", self.frame_interval_s, "--frame-interval S"),
         )
         for origin in (self.pixel_size_origin, self.frame_interval_origin):
             if origin not in ORIGINS:

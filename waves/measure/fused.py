@@ -22,6 +22,7 @@ import numba
 import numpy as np
 
 from waves.errors import WavesError
+from waves.phase.charge import wrap_scalar
 
 __all__ = ["PixelMeasures", "pixel_measures"]
 
@@ -40,19 +41,6 @@ class PixelMeasures:
     direction_rad: np.ndarray
     coherence: np.ndarray
     omega_rad_per_frame: np.ndarray
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _wrap(d):
-    if d >= math.pi:
-        d -= TWO_PI
-        while d >= math.pi:
-            d -= TWO_PI
-    elif d < -math.pi:
-        d += TWO_PI
-        while d < -math.pi:
-            d += TWO_PI
-    return d
 
 
 @numba.njit(cache=True, nogil=True, inline="always")
@@ -114,23 +102,23 @@ def _measures_kernel(phase, amp, r0, r1, w0, w1, o_amp, o_per, o_speed, o_dir, o
                 s_amp += amp[t, r, c]
                 p = phase[t, r, c]
                 if t + 1 < nt:
-                    cum[t + 1] = cum[t] + _wrap(np.float64(phase[t + 1, r, c]) - p)
+                    cum[t + 1] = cum[t] + wrap_scalar(np.float64(phase[t + 1, r, c]) - p)
                 # phase gradient, central inside, one-sided at the block edges
                 if r == 0:
-                    gy = _wrap(np.float64(phase[t, 1, c]) - p)
+                    gy = wrap_scalar(np.float64(phase[t, 1, c]) - p)
                 elif r == ny - 1:
-                    gy = _wrap(p - np.float64(phase[t, ny - 2, c]))
+                    gy = wrap_scalar(p - np.float64(phase[t, ny - 2, c]))
                 else:
                     gy = 0.5 * (
-                        _wrap(np.float64(phase[t, r + 1, c]) - p) + _wrap(p - np.float64(phase[t, r - 1, c]))
+                        wrap_scalar(np.float64(phase[t, r + 1, c]) - p) + wrap_scalar(p - np.float64(phase[t, r - 1, c]))
                     )
                 if c == 0:
-                    gx = _wrap(np.float64(phase[t, r, 1]) - p)
+                    gx = wrap_scalar(np.float64(phase[t, r, 1]) - p)
                 elif c == nx - 1:
-                    gx = _wrap(p - np.float64(phase[t, r, nx - 2]))
+                    gx = wrap_scalar(p - np.float64(phase[t, r, nx - 2]))
                 else:
                     gx = 0.5 * (
-                        _wrap(np.float64(phase[t, r, c + 1]) - p) + _wrap(p - np.float64(phase[t, r, c - 1]))
+                        wrap_scalar(np.float64(phase[t, r, c + 1]) - p) + wrap_scalar(p - np.float64(phase[t, r, c - 1]))
                     )
                 ckx[t + 1] = ckx[t] - gx
                 cky[t + 1] = cky[t] - gy

@@ -20,7 +20,7 @@ import numpy as np
 
 from waves.errors import WavesError
 
-__all__ = ["plaquette_charge", "plaquette_charge_numpy", "wrap"]
+__all__ = ["plaquette_charge", "plaquette_charge_numpy", "wrap", "wrap_scalar"]
 
 TWO_PI = 2.0 * math.pi
 
@@ -55,7 +55,8 @@ def plaquette_charge_numpy(phase: np.ndarray) -> np.ndarray:
 
 
 @numba.njit(cache=True, nogil=True, inline="always")
-def _wrap1(d):
+def wrap_scalar(d):
+    """Wrap one angle difference into [-pi, pi) (compiled, inlined)."""
     if d >= math.pi:
         d -= TWO_PI
         while d >= math.pi:
@@ -77,7 +78,7 @@ def _charge_kernel(p, out):
                 b = np.float64(p[t, r + 1, c])
                 cc = np.float64(p[t, r + 1, c + 1])
                 d = np.float64(p[t, r, c + 1])
-                s = _wrap1(b - a) + _wrap1(cc - b) + _wrap1(d - cc) + _wrap1(a - d)
+                s = wrap_scalar(b - a) + wrap_scalar(cc - b) + wrap_scalar(d - cc) + wrap_scalar(a - d)
                 if s != s:  # NaN somewhere on the loop
                     out[t, r, c] = 0
                 elif s > math.pi:
