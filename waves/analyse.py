@@ -45,7 +45,12 @@ from waves.measure.fused import pixel_measures
 from waves.measure.period import quartiles, spectral_period
 from waves.measure.speed import activation_fit_speed, activation_times
 from waves.phase import tracking
-from waves.phase.analytic import analytic_signal, passband_from_periods, phase_and_amplitude
+from waves.phase.analytic import (
+    analytic_signal,
+    delay_embedding_phase,
+    passband_from_periods,
+    phase_and_amplitude,
+)
 from waves.phase.charge import plaquette_charge
 from waves.units import Calibration
 
@@ -66,6 +71,7 @@ class AnalysisOptions:
     """What `analyse_movie` does.  Units in the names."""
 
     period_band_min: tuple[float, float] = DEFAULT_PERIOD_BAND_MIN
+    phase_method: str = "hilbert"  # or "delay": delay embedding with a quarter-period lag
     analysis_bin: int | None = None  # None: bin so a wavelength spans ~24 px
     flatten: bool = True
     register: bool = False
@@ -95,6 +101,8 @@ class AnalysisOptions:
         for name in ("persistent_periods", "window_periods", "memory_budget_mb"):
             if not getattr(self, name) > 0:
                 raise WavesError(f"{name} must be positive, got {getattr(self, name)!r}")
+        if self.phase_method not in ("hilbert", "delay"):
+            raise WavesError(f"phase method must be 'hilbert' or 'delay', got {self.phase_method!r}")
         if int(self.workers) < 1:
             raise WavesError("workers must be at least 1")
 
@@ -327,7 +335,20 @@ def _strip_rows(ny: int, nx: int, nt: int, budget_bytes: float) -> int:
     return max(4, min(rows, ny))
 
 
-def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, period_frames, workers, progress):
+def _phase(z: np.ndarray, lag: int | None) -> tuple[np.ndarray, np.ndarray]:
+    """Phase and amplitude from the analytic signal, or, with a lag, by delay
+    embedding of its real part (the band-passed signal); the embedding drops
+    the last `lag` frames."""
+    if lag is None:
+        return phase_and_amplitude(z)
+    x = z.real
+    phase = delay_embedding_phase(x, lag_frames=lag)[:-lag]
+    amp = np.hypot(x[:-lag], x[lag:]).astype(np.float32)
+    return phase, amp
+
+
+def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, period_frames, lag, workers,
+                    progress):
     nt, ny, nx = movie.shape
     n = len(windows) + 1
     maps = _Maps(
@@ -345,7 +366,7 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         r1 = min(ny, r0 + rows_per_strip)
         a0, a1 = max(0, r0 - HALO_PX), min(ny, r1 + HALO_PX)
         z = analytic_signal(movie.rows(a0, a1), passband=passband, workers=workers)[trim : nt - trim]
-        phase, amp = phase_and_amplitude(z)
+        phase, amp = _phase(z, lag)
         del z
         inner = slice(r0 - a0, r1 - a0)
         pm = pixel_measures(phase, amp, rows=(inner.start, inner.stop), windows=windows)
@@ -465,7 +486,8 @@ def analyse_movie(
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
         trim = int(math.ceil(0.75 * period0))
-        usable = nt - 2 * trim
+        lag = max(1, int(round(period0 / 4))) if options.phase_method == "delay" else None
+        usable = nt - 2 * trim - (lag or 0)
         if usable < 2 * period0:
             raise InputError(
                 f"too few frames: the movie holds {nt} frames, {nt / period0:.1f} periods of "
@@ -482,6 +504,7 @@ def analyse_movie(
             windows=windows,
             rows_per_strip=_strip_rows(nyb, nxb, nt, 0.5 * budget),
             period_frames=period0,
+            lag=lag,
             workers=options.workers,
             progress=progress,
         )
@@ -498,6 +521,7 @@ def analyse_movie(
         period0=period0,
         passband=passband,
         trim=trim,
+        lag=lag,
         windows=windows,
         usable=usable,
         sigma_px=sigma_px,
@@ -536,8 +560,8 @@ def _to_recorded(table: dict, *, factor: int, frame_offset: int, pos_cols=("row"
     return out
 
 
-def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, windows, usable, sigma_px, mean_b,
-               warnings, notes):
+def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
+               mean_b, warnings, notes):
     nyb, nxb = maps.amplitude.shape
     dt_min = cal.frame_interval_min
     px_b = cal.pixel_size_um * factor
@@ -635,6 +659,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, wi
             "grid": grid,
             "passband_period_min": [dt_min / passband[1], dt_min / passband[0]],
             "trimmed_frames_each_end": trim,
+            "phase_method": options.phase_method,
+            "delay_lag_frames": lag,
             "window_min": (windows[0][1] - windows[0][0]) * dt_min if windows else None,
             "smoothing_sigma_um": sigma_px * px_b,
             "signal_fraction": float(valid.mean()),

@@ -95,6 +95,12 @@ def build_parser() -> argparse.ArgumentParser:
     p_an.add_argument(
         "--smooth", type=float, metavar="UM", help="spatial smoothing sigma in um (default: wavelength/12)"
     )
+    p_an.add_argument(
+        "--phase",
+        choices=("hilbert", "delay"),
+        default="hilbert",
+        help="phase from the analytic signal (default) or by delay embedding (quarter-period lag)",
+    )
     p_an.add_argument("--register", action="store_true", help="correct rigid drift of the field")
     p_an.add_argument(
         "--no-flatten", action="store_true", help="do not correct uneven illumination"
@@ -188,6 +194,7 @@ def _cmd_analyse(args: argparse.Namespace) -> int:
 
     options = AnalysisOptions(
         period_band_min=tuple(args.period_band) if args.period_band else DEFAULT_PERIOD_BAND_MIN,
+        phase_method=args.phase,
         flatten=not args.no_flatten,
         register=args.register,
         smooth_sigma_um=args.smooth,
