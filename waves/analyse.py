@@ -38,9 +38,11 @@ import warnings as warnings_module
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
+import scipy.ndimage
 
 from waves import __version__, preprocess
 from waves.errors import InputError, WavesError
+from waves.measure.centres import track_centres
 from waves.measure.fused import pixel_measures
 from waves.measure.period import quartiles, spectral_period
 from waves.measure.speed import activation_fit_speed, activation_times
@@ -324,6 +326,7 @@ class _Maps:
     direction: np.ndarray
     coherence: np.ndarray
     fit_speed: np.ndarray
+    interval_cv: np.ndarray  # spread of the intervals between waves (std / mean)
     charges: list  # of int64 (n, 4) arrays: frame, row, col, charge
 
 
@@ -358,6 +361,7 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         direction=np.full((n, ny, nx), np.nan, np.float32),
         coherence=np.full((n, ny, nx), np.nan, np.float32),
         fit_speed=np.full((ny, nx), np.nan, np.float32),
+        interval_cv=np.full((ny, nx), np.nan, np.float32),
         charges=[],
     )
     starts = list(range(0, ny, rows_per_strip))
@@ -380,6 +384,8 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         with warnings_module.catch_warnings():
             warnings_module.simplefilter("ignore", RuntimeWarning)  # all-NaN pixels give NaN
             maps.fit_speed[r0:r1] = np.nanmedian(sp[inner], axis=2)
+            gaps = np.diff(times[inner], axis=2)
+            maps.interval_cv[r0:r1] = np.nanstd(gaps, axis=2) / np.nanmean(gaps, axis=2)
         del times, counts, sp
         # charges of the plaquettes whose top-left pixel is an inner pixel
         q = plaquette_charge(phase[:, inner.start : min(inner.stop + 1, a1 - a0)])
@@ -560,6 +566,21 @@ def _to_recorded(table: dict, *, factor: int, frame_offset: int, pos_cols=("row"
     return out
 
 
+def _signal_without_empty_holes(amp, filled, options, core_tracks):
+    strict = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=9)
+    holes, n = scipy.ndimage.label(filled & ~strict)
+    if n == 0:
+        return filled
+    keep = np.zeros(n + 1, dtype=bool)
+    ny, nx = amp.shape
+    for r, c in zip(core_tracks["mean_row"], core_tracks["mean_col"]):
+        r0, c0 = int(min(max(round(r), 0), ny - 1)), int(min(max(round(c), 0), nx - 1))
+        window = holes[max(r0 - 1, 0) : r0 + 2, max(c0 - 1, 0) : c0 + 2]
+        keep[np.unique(window)] = True
+    keep[0] = False
+    return strict | keep[holes]
+
+
 def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
                mean_b, warnings, notes):
     nyb, nxb = maps.amplitude.shape
@@ -569,21 +590,35 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     # small low-amplitude holes (spiral cores oscillate weakly) stay inside the signal
     wl_guess = float(np.nanmedian(maps.speed[0] * maps.period[0]))
     hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
-    valid = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole)
-    tracks = _detect_and_track(maps.charges, signal=valid, n_frames=usable, period_frames=period0)
+    filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole)
+    tracks = _detect_and_track(maps.charges, signal=filled, n_frames=usable, period_frames=period0)
     persistent = tracking.persistent_tracks(
         tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
     )
+    # holes without a core are places without signal (obstacles, empty patches): out
+    valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks)
 
     # speeds only where the direction is steady and away from persistent cores
+    wl_px = float(np.nanmedian(np.where(valid, maps.speed[0] * maps.period[0], np.nan)))
     speed_ok = valid & (maps.coherence[0] >= options.min_coherence)
     per = persistent.tracks
     if len(per["track_id"]):
         rr, cc = np.mgrid[0:nyb, 0:nxb]
-        wl_px = np.nanmedian(np.where(valid, maps.speed[0] * maps.period[0], np.nan))
         rad = 0.5 * wl_px if np.isfinite(wl_px) else 5.0
         for r, c in zip(per["mean_row"], per["mean_col"]):
             speed_ok &= np.hypot(rr - r, cc - c) > rad
+    # centres closer than a quarter wavelength are one
+    merge_px = max(2.0, 0.25 * wl_px) if np.isfinite(wl_px) else 3.0
+    cs = track_centres(
+        maps.direction,
+        maps.coherence,
+        valid,
+        merge_radius_px=merge_px,
+        min_coherence=options.min_coherence,
+        cores_rows=per["mean_row"],
+        cores_cols=per["mean_col"],
+        cores_ids=per["track_id"],
+    )
 
     to_um_per_min = px_b / dt_min
     period_map = np.where(valid, maps.period[0] * dt_min, np.nan).astype(np.float32)
@@ -638,6 +673,10 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     if speed_q is None and period_q is not None:
         warnings.append("front speed not measured: no pixel has a steady wave direction away from cores and collisions")
     grid = _grid(cal, factor)
+    centres, centres_tab, terr_course = _centre_records(
+        cs, maps=maps, valid=valid, windows=windows, trim=trim, factor=factor, cal=cal, merge_px=merge_px,
+        spiral_cores=spiral_cores,
+    )
     summary = {
         "schema_version": 1,
         "source": None,  # filled by the caller that knows the file
@@ -647,9 +686,13 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "wavelength_um": quartiles(wavelength_map),
         "period_timecourse": [{"t_min": c["t_min"], "period_min": c["period_min"]} for c in course],
         "spiral_cores": spiral_cores,
-        "centres": [],
+        "centres": centres,
         "warnings": list(warnings),
         # extra keys
+        "centres_per_cm2": (len(centres) / (field_px * px_b * px_b * 1e-8)) if field_px > 0 else None,
+        "unassigned_share": (
+            float(np.sum(valid & (cs.labels == 0)) / field_px) if field_px > 0 else None
+        ),
         "front_speed_activation_fit_um_per_min": quartiles(fit_map),
         "cores_per_cm2": density,
         "dominant_period_min": period0 * dt_min,
@@ -674,6 +717,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "wavelength_um": wavelength_map,
         "front_speed_activation_fit_um_per_min": fit_map,
         "direction_deg": direction_map,
+        "territory_labels": cs.labels.astype(np.int32),
+        "interval_cv": np.where(valid, maps.interval_cv, np.nan).astype(np.float32),
         "amplitude": maps.amplitude,
         "mean_image": mean_b,
     }
@@ -688,8 +733,86 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "core_tracks": tracks_um,
         "period_timecourse": course_tab,
         "dispersion": dispersion,
+        "centres": centres_tab,
+        "territories_timecourse": terr_course,
     }
     return summary, out_maps, tables
+
+
+def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, spiral_cores):
+    """summary['centres'], the centres table and the per-window territory
+    table, in calibrated units and recorded-image coordinates."""
+    px = cal.pixel_size_um
+    px_b = px * factor
+    dt_min = cal.frame_interval_min
+    nyb, nxb = valid.shape
+    rr, cc = np.mgrid[0:nyb, 0:nxb]
+    field_px = max(float(valid.sum()), 1.0)
+    area_mm2 = px_b * px_b * 1e-6
+    core_by_track = {c["id"]: c for c in spiral_cores}
+
+    def window_min(w, end):
+        if w < 0:
+            return None
+        a, b = windows[w]
+        return float((trim + (b if end else a)) * dt_min)
+
+    records = []
+    tab = {k: [] for k in ("id", "kind", "x_um", "y_um", "charge", "rotation", "period_min", "interval_cv",
+                           "territory_area_mm2", "equivalent_diameter_um", "field_share", "first_min",
+                           "last_min")}
+    c = cs.centres
+    for i in range(len(c["id"])):
+        r, col = c["row"][i], c["col"][i]
+        near = valid & (np.hypot(rr - r, cc - col) <= merge_px)
+        with warnings_module.catch_warnings():
+            warnings_module.simplefilter("ignore", RuntimeWarning)
+            period = float(np.nanmedian(maps.period[0][near])) * dt_min if near.any() else float("nan")
+            cv = float(np.nanmedian(maps.interval_cv[near])) if near.any() else float("nan")
+        n = int(c["n_pixels"][i])
+        area = n * area_mm2
+        core = core_by_track.get(int(c["core_track"][i]))
+        x_um = (col * factor + 0.5 * (factor - 1)) * px
+        y_um = (r * factor + 0.5 * (factor - 1)) * px
+        if core is not None:
+            x_um, y_um = core["x_um"], core["y_um"]
+        rec = {
+            "id": int(c["id"][i]),
+            "kind": str(c["kind"][i]),
+            "x_um": float(x_um),
+            "y_um": float(y_um),
+            "period_min": period if np.isfinite(period) else None,
+            "territory_area_mm2": float(area),
+            # extra keys
+            "equivalent_diameter_um": float(2e3 * np.sqrt(area / np.pi)),
+            "field_share": float(n / field_px),
+            "interval_cv": cv if np.isfinite(cv) else None,
+            "charge": None if core is None else core["charge"],
+            "rotation": None if core is None else core["rotation"],
+            "first_min": window_min(int(c["first_window"][i]), False),
+            "last_min": window_min(int(c["last_window"][i]), True),
+        }
+        records.append(rec)
+        for k in tab:
+            tab[k].append(rec[k])
+    dtypes = {"id": np.int64, "kind": object, "rotation": object}
+    centres_tab = {
+        k: np.asarray([np.nan if v is None else v for v in vals] if k not in dtypes else
+                      ["" if v is None else v for v in vals], dtype=dtypes.get(k, np.float64))
+        for k, vals in tab.items()
+    }
+    centres_tab["charge"] = np.asarray([0 if v is None else v for v in tab["charge"]], dtype=np.int64)
+    wa = cs.window_areas
+    t_mid = np.asarray([(trim + 0.5 * (windows[w][0] + windows[w][1])) * dt_min for w in wa["window"]],
+                       dtype=np.float64)
+    course = {
+        "window": wa["window"],
+        "t_min": t_mid,
+        "centre_id": wa["centre_id"],
+        "territory_area_mm2": wa["n_pixels"].astype(np.float64) * area_mm2,
+        "field_share": wa["n_pixels"].astype(np.float64) / field_px,
+    }
+    return records, centres_tab, course
 
 
 def _options_dict(options: AnalysisOptions) -> dict:

@@ -222,6 +222,12 @@ def _cmd_analyse(args: argparse.Namespace) -> int:
     print(f"front speed     {fmt(s['front_speed_um_per_min'], 'um/min')}")
     print(f"wavelength      {fmt(s['wavelength_um'], 'um')}")
     print(f"spiral cores    {len(s['spiral_cores'])} persistent")
+    for c in s["centres"]:
+        per = "?" if c["period_min"] is None else f"{c['period_min']:.3g}"
+        print(
+            f"centre {c['id']:<8d} {c['kind']:<7s} at x {c['x_um']:.0f} um, y {c['y_um']:.0f} um; "
+            f"period {per} min; territory {c['territory_area_mm2']:.3g} mm^2"
+        )
     for w in s["warnings"]:
         print(f"warning         {w}")
     print(f"results in      {summary_path.parent}")

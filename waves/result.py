@@ -32,6 +32,8 @@ MAP_FILES = {
     "front_speed_activation_fit_um_per_min": "front_speed_fit_um_per_min.tif",
     "wavelength_um": "wavelength_um.tif",
     "direction_deg": "direction_deg.tif",
+    "territory_labels": "territory_labels.tif",
+    "interval_cv": "interval_cv.tif",
     "amplitude": "amplitude.tif",
     "mean_image": "mean_image.tif",
 }
@@ -41,6 +43,8 @@ TABLE_FILES = {
     "core_tracks": "core_tracks.csv",
     "period_timecourse": "period_timecourse.csv",
     "dispersion": "dispersion.csv",
+    "centres": "centres.csv",
+    "territories_timecourse": "territories_timecourse.csv",
 }
 
 

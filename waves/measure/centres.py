@@ -1,0 +1,158 @@
+"""Aggregation centres over a whole movie and in time windows.
+
+A centre can be active for part of a movie only: a faster pacemaker
+entrains a slower one, whose territory it takes over, and the slower one
+stops being a source.  So centres are found in every time window's direction
+field (`waves.measure.territories.find_territories`), then the window
+centres are linked across windows by position (within twice the merge
+radius) into the movie's centres.  The whole movie's territory map comes
+from the direction field averaged over the movie; per-window territory areas
+follow the take-overs.
+
+A centre is a spiral when a persistent spiral core lies within twice the
+merge radius of it (the core's position is then the centre's), otherwise a
+target pacemaker.  Pixels and windows here; `waves.analyse` converts.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse
+import scipy.sparse.csgraph
+from scipy.spatial import cKDTree
+
+from waves.measure.territories import fill_gaps, find_territories
+
+__all__ = ["CentreSet", "track_centres"]
+
+
+@dataclass(frozen=True)
+class CentreSet:
+    """Centres of a movie (analysis-grid pixels, window indices).
+
+    centres: columns id (1-based, = label in the maps), kind ('spiral' or
+    'target'), row, col, core_track (spiral core track id or -1),
+    first_window, last_window, n_pixels (whole-movie territory).
+    labels: whole-movie territory map (0 = unassigned).
+    window_areas: columns window, centre_id, n_pixels.
+    window_labels: (n_windows, y, x) territory maps per window, same ids.
+    """
+
+    centres: dict
+    labels: np.ndarray
+    window_areas: dict
+    window_labels: np.ndarray
+
+
+def _link(points: np.ndarray, radius: float) -> np.ndarray:
+    n = len(points)
+    if n == 0:
+        return np.zeros(0, dtype=np.int64)
+    pairs = cKDTree(points).query_pairs(radius, output_type="ndarray")
+    graph = scipy.sparse.coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    return scipy.sparse.csgraph.connected_components(graph, directed=False)[1]
+
+
+def track_centres(
+    direction: np.ndarray,
+    coherence: np.ndarray,
+    signal: np.ndarray,
+    *,
+    merge_radius_px: float,
+    min_coherence: float,
+    cores_rows: np.ndarray,
+    cores_cols: np.ndarray,
+    cores_ids: np.ndarray,
+) -> CentreSet:
+    """Centres and territories from direction and coherence maps of shape
+    (n_windows + 1, y, x): index 0 the whole movie, then the windows."""
+    n_all, ny, nx = direction.shape
+    nw = n_all - 1
+
+    def territories(i):
+        steady = signal & (coherence[i] >= min_coherence)
+        t = find_territories(direction[i], steady, merge_radius_px=merge_radius_px)
+        return t, fill_gaps(t.labels, signal & ~steady)
+
+    found = []  # (window, row, col, n_pixels, local label, filled labels)
+    window_maps = []
+    for w in range(nw):
+        t, lab = territories(w + 1)
+        window_maps.append(lab)
+        for k in range(t.n_centres):
+            found.append((w, t.rows[k], t.cols[k], int(np.sum(lab == k + 1)), k + 1))
+    whole, whole_lab = territories(0)
+
+    link_r = 2.0 * merge_radius_px
+    pts = np.array([[f[1], f[2]] for f in found] + [[r, c] for r, c in zip(whole.rows, whole.cols)])
+    groups = _link(pts, link_r) if len(pts) else np.zeros(0, dtype=np.int64)
+    n_found = len(found)
+    order = []  # groups by first appearance, whole-movie-only centres last
+    for g in groups:
+        if g not in order:
+            order.append(g)
+    gid = {g: i + 1 for i, g in enumerate(order)}
+
+    rows, cols, kinds, core_ids, first, last = [], [], [], [], [], []
+    core_pts = np.stack([np.asarray(cores_rows, float), np.asarray(cores_cols, float)], axis=1)
+    for g in order:
+        members = np.flatnonzero(groups == g)
+        win_members = members[members < n_found]
+        if len(win_members):
+            w_area = np.array([found[i][3] for i in win_members], dtype=np.float64)
+            r = float(np.average([found[i][1] for i in win_members], weights=w_area + 1))
+            c = float(np.average([found[i][2] for i in win_members], weights=w_area + 1))
+            first.append(int(min(found[i][0] for i in win_members)))
+            last.append(int(max(found[i][0] for i in win_members)))
+        else:
+            j = members[0] - n_found
+            r, c = float(whole.rows[j]), float(whole.cols[j])
+            first.append(-1)
+            last.append(-1)
+        kind, core = "target", -1
+        if len(core_pts):
+            dist = np.hypot(core_pts[:, 0] - r, core_pts[:, 1] - c)
+            j = int(np.argmin(dist))
+            if dist[j] <= link_r:
+                kind, core = "spiral", int(cores_ids[j])
+                r, c = float(core_pts[j, 0]), float(core_pts[j, 1])
+        rows.append(r)
+        cols.append(c)
+        kinds.append(kind)
+        core_ids.append(core)
+
+    def relabel(lab, local_to_global):
+        out = np.zeros_like(lab)
+        for local, glob in local_to_global.items():
+            out[lab == local] = glob
+        return out
+
+    window_labels = np.zeros((nw, ny, nx), dtype=np.int32)
+    areas = {"window": [], "centre_id": [], "n_pixels": []}
+    for i, f in enumerate(found):
+        w, local = f[0], f[4]
+        glob = gid[groups[i]]
+        window_labels[w][window_maps[w] == local] = glob
+    for w in range(nw):
+        for glob in range(1, len(order) + 1):
+            n = int(np.sum(window_labels[w] == glob))
+            if n:
+                areas["window"].append(w)
+                areas["centre_id"].append(glob)
+                areas["n_pixels"].append(n)
+    whole_map = {k + 1: gid[groups[n_found + k]] for k in range(whole.n_centres)}
+    labels = relabel(whole_lab, whole_map)
+    centres = {
+        "id": np.arange(1, len(order) + 1, dtype=np.int64),
+        "kind": np.asarray(kinds, dtype=object),
+        "row": np.asarray(rows, dtype=np.float64),
+        "col": np.asarray(cols, dtype=np.float64),
+        "core_track": np.asarray(core_ids, dtype=np.int64),
+        "first_window": np.asarray(first, dtype=np.int64),
+        "last_window": np.asarray(last, dtype=np.int64),
+        "n_pixels": np.asarray([int(np.sum(labels == i)) for i in range(1, len(order) + 1)], dtype=np.int64),
+    }
+    window_areas = {k: np.asarray(v, dtype=np.int64) for k, v in areas.items()}
+    return CentreSet(centres=centres, labels=labels, window_areas=window_areas, window_labels=window_labels)

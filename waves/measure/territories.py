@@ -1,0 +1,201 @@
+"""Aggregation centres and their territories from the wave direction field.
+
+Waves travel away from the centre that emits them, so walking upstream,
+against the local propagation direction, leads every pixel back to its
+centre: radially inwards for a target pacemaker, spiralling inwards to the
+core for a spiral (its wave vector k r - theta / r turns the upstream walk
+round the core as it closes in).  Collision lines, where fronts from two
+centres meet, are watersheds of this walk.
+
+Here the walk is discrete: each signal pixel points to the neighbour (of
+eight) that lies most nearly upstream, when that direction is within 60
+degrees of upstream; otherwise (at a centre, where the direction is
+undefined or turns round) it points to itself.  Pointer jumping finds where
+each walk ends.  End points closer together than a merge radius are one
+candidate centre, so a broad pacemaker or a meandering core is not split.
+A candidate is a centre when waves leave it: on a ring around it most of
+the propagation directions point outwards.  Every pixel whose walk ends in
+a centre belongs to its territory; the rest (walks that end at the field's
+edge, where waves come in from outside the view, or at junk) is left
+unassigned (label 0).
+
+Pixels and analysis-grid units throughout; `waves.analyse` converts.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse
+import scipy.sparse.csgraph
+from scipy.spatial import cKDTree
+
+from waves.errors import WavesError
+
+__all__ = ["Territories", "upstream_targets", "find_territories", "fill_gaps"]
+
+_NEIGHBOURS = np.array(
+    [(-1, -1), (-1, 0), (-1, 1), (0, -1), (0, 1), (1, -1), (1, 0), (1, 1)], dtype=np.int64
+)
+_MIN_COS = 0.5  # a step must lie within 60 degrees of upstream
+
+
+@dataclass(frozen=True)
+class Territories:
+    """Centres and the label map of their territories (analysis-grid pixels).
+
+    labels: int32 (y, x), 0 = unassigned, k = centre k (1-based, the order of
+    the arrays below).  rows, cols: centre positions.  n_pixels: territory
+    sizes.  outward_fraction: the share of ring directions pointing away
+    from the centre (1 for an ideal target).
+    """
+
+    labels: np.ndarray
+    rows: np.ndarray
+    cols: np.ndarray
+    n_pixels: np.ndarray
+    outward_fraction: np.ndarray
+
+    @property
+    def n_centres(self) -> int:
+        return int(len(self.rows))
+
+
+def upstream_targets(direction_rad: np.ndarray, valid: np.ndarray) -> np.ndarray:
+    """For every pixel the flat index of the neighbour most nearly upstream
+    (against the propagation direction, given as an angle counterclockwise
+    as displayed from +x), or its own index where no valid neighbour lies
+    within 60 degrees of upstream or the pixel is not valid."""
+    d = np.asarray(direction_rad, dtype=np.float64)
+    v = np.asarray(valid, dtype=bool) & np.isfinite(d)
+    ny, nx = d.shape
+    # upstream unit vector in (row, col): propagation is (-sin a, cos a)
+    up_r = np.sin(d)
+    up_c = -np.cos(d)
+    rr, cc = np.mgrid[0:ny, 0:nx]
+    best = np.full((ny, nx), _MIN_COS)
+    target = (rr * nx + cc).astype(np.int64)
+    own = target.copy()
+    for dr, dc in _NEIGHBOURS:
+        norm = np.hypot(dr, dc)
+        score = (up_r * dr + up_c * dc) / norm
+        r2, c2 = rr + dr, cc + dc
+        inside = (r2 >= 0) & (r2 < ny) & (c2 >= 0) & (c2 < nx)
+        ok = np.zeros((ny, nx), dtype=bool)
+        ok[inside] = v[r2[inside], c2[inside]]
+        better = v & ok & (score > best)
+        best = np.where(better, score, best)
+        target = np.where(better, r2 * nx + c2, target)
+    return np.where(v, target, own).ravel()
+
+
+def _walk_ends(nxt: np.ndarray) -> np.ndarray:
+    """Where each pointer walk ends: pointer jumping until nothing changes
+    (walks that end in a cycle end at some node of that cycle)."""
+    ends = nxt.copy()
+    for _ in range(int(np.ceil(np.log2(max(len(nxt), 2)))) + 2):
+        new = ends[ends]
+        if np.array_equal(new, ends):
+            break
+        ends = new
+    return ends
+
+
+def _outward_fraction(direction, valid, r0, c0, radius):
+    ny, nx = direction.shape
+    rr, cc = np.mgrid[0:ny, 0:nx]
+    dist = np.hypot(rr - r0, cc - c0)
+    ring = valid & np.isfinite(direction) & (dist >= 0.5 * radius) & (dist <= 1.5 * radius)
+    if ring.sum() < 6:
+        return 0.0
+    # propagation in (row, col) is (-sin a, cos a); outward is (r - r0, c - c0)
+    a = direction[ring]
+    dot = -np.sin(a) * (rr[ring] - r0) + np.cos(a) * (cc[ring] - c0)
+    return float(np.mean(dot > 0))
+
+
+def find_territories(
+    direction_rad: np.ndarray,
+    valid: np.ndarray,
+    *,
+    merge_radius_px: float,
+    min_outward: float = 0.65,
+    min_pixels: int = 9,
+) -> Territories:
+    """Centres and territories of one direction field (see module doc).
+
+    direction_rad: (y, x) propagation direction, NaN where undefined;
+    valid: pixels whose direction counts (signal, steady direction).
+    merge_radius_px: walk end points closer than this are one centre (about
+    a quarter wavelength); the outward test looks at a ring of 0.5 to 1.5
+    times this radius.
+    """
+    d = np.asarray(direction_rad, dtype=np.float64)
+    v = np.asarray(valid, dtype=bool)
+    if d.ndim != 2 or d.shape != v.shape:
+        raise WavesError("direction and validity must be 2-D maps of one shape")
+    if not merge_radius_px > 0:
+        raise WavesError(f"merge radius must be positive, got {merge_radius_px!r}")
+    ny, nx = d.shape
+    labels = np.zeros((ny, nx), dtype=np.int32)
+    empty = Territories(labels, np.zeros(0), np.zeros(0), np.zeros(0, np.int64), np.zeros(0))
+    member = (v & np.isfinite(d)).ravel()
+    if not member.any():
+        return empty
+    ends = _walk_ends(upstream_targets(d, v))
+    end_nodes, inverse = np.unique(ends[member], return_inverse=True)
+    er, ec = np.divmod(end_nodes, nx)
+    pts = np.stack([er, ec], axis=1).astype(np.float64)
+    # end points closer than the merge radius are one candidate centre
+    pairs = cKDTree(pts).query_pairs(merge_radius_px, output_type="ndarray")
+    n = len(pts)
+    graph = scipy.sparse.coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    _, comp = scipy.sparse.csgraph.connected_components(graph, directed=False)
+    pix_comp = comp[inverse]  # candidate of every member pixel
+    counts = np.bincount(pix_comp, minlength=comp.max() + 1)
+    rows, cols, sizes, outs, keep = [], [], [], [], {}
+    for k in np.argsort(-counts):
+        if counts[k] < min_pixels:
+            break
+        sel = comp == k
+        # centre: end points weighted by how many walks end there
+        w = np.bincount(inverse, minlength=n)[sel].astype(np.float64)
+        r0 = float(np.sum(er[sel] * w) / w.sum())
+        c0 = float(np.sum(ec[sel] * w) / w.sum())
+        out = _outward_fraction(d, v, r0, c0, merge_radius_px)
+        if out < min_outward:
+            continue
+        keep[k] = len(rows) + 1
+        rows.append(r0)
+        cols.append(c0)
+        sizes.append(int(counts[k]))
+        outs.append(out)
+    lab = np.zeros(comp.max() + 1, dtype=np.int32)
+    for k, label in keep.items():
+        lab[k] = label
+    flat = labels.ravel()
+    flat[np.flatnonzero(member)] = lab[pix_comp]
+    return Territories(
+        labels=flat.reshape(ny, nx),
+        rows=np.asarray(rows, dtype=np.float64),
+        cols=np.asarray(cols, dtype=np.float64),
+        n_pixels=np.asarray(sizes, dtype=np.int64),
+        outward_fraction=np.asarray(outs, dtype=np.float64),
+    )
+
+
+def fill_gaps(labels: np.ndarray, fill: np.ndarray) -> np.ndarray:
+    """Give the pixels in `fill` (e.g. signal pixels whose direction was too
+    unsteady to walk: collision lines, the centres themselves) the label of
+    the nearest labelled pixel (scipy.ndimage.distance_transform_edt)."""
+    import scipy.ndimage
+
+    lab = np.asarray(labels)
+    if not (lab > 0).any():
+        return lab.copy()
+    _, (ir, ic) = scipy.ndimage.distance_transform_edt(lab == 0, return_indices=True)
+    out = lab.copy()
+    f = np.asarray(fill, dtype=bool) & (lab == 0)
+    out[f] = lab[ir[f], ic[f]]
+    return out
