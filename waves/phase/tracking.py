@@ -535,13 +535,21 @@ def _link(
     """
     if len(tr) == 0 or len(dr) == 0:
         return []
-    tt = scipy.spatial.cKDTree(np.column_stack([tr, tc]))
-    td = scipy.spatial.cKDTree(np.column_stack([dr, dc]))
-    sdm = tt.sparse_distance_matrix(td, float(gate.max()), output_type="ndarray")
-    ok = sdm["v"] <= gate[sdm["i"]]
-    i, j, d = sdm["i"][ok], sdm["j"][ok], sdm["v"][ok]
+    if len(tr) * len(dr) <= 64:
+        # few cores (the usual case): the dense distance matrix is cheaper than trees
+        dist = np.hypot(np.subtract.outer(tr, dr), np.subtract.outer(tc, dc))
+        i, j = np.nonzero(dist <= gate[:, None])
+        d = dist[i, j]
+    else:
+        tt = scipy.spatial.cKDTree(np.column_stack([tr, tc]))
+        td = scipy.spatial.cKDTree(np.column_stack([dr, dc]))
+        sdm = tt.sparse_distance_matrix(td, float(gate.max()), output_type="ndarray")
+        ok = sdm["v"] <= gate[sdm["i"]]
+        i, j, d = sdm["i"][ok], sdm["j"][ok], sdm["v"][ok]
     if len(i) == 0:
         return []
+    if len(i) == 1:
+        return [(int(i[0]), int(j[0]))]
     nt, nd = len(tr), len(dr)
     graph = scipy.sparse.coo_matrix((np.ones(len(i), np.int8), (i, nt + j)), shape=(nt + nd,) * 2)
     _, label = scipy.sparse.csgraph.connected_components(graph, directed=False)
