@@ -123,6 +123,7 @@ class Analysis:
     tables: dict  # name -> {column: 1-D array}
     warnings: tuple[str, ...]
     timings_s: dict = field(default_factory=dict)
+    stacks: dict = field(default_factory=dict)  # name -> (n, y, x) array, e.g. territories per window
 
 
 # --------------------------------------------------------------------------- helpers
@@ -537,7 +538,8 @@ def analyse_movie(
     )
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
-    return Analysis(summary=result[0], maps=result[1], tables=result[2], warnings=tuple(warnings), timings_s=timings)
+    return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),
+                    timings_s=timings)
 
 
 def _grid(cal: Calibration, factor: int) -> dict:
@@ -705,6 +707,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
             "phase_method": options.phase_method,
             "delay_lag_frames": lag,
             "window_min": (windows[0][1] - windows[0][0]) * dt_min if windows else None,
+            "window_step_min": (windows[1][0] - windows[0][0]) * dt_min if len(windows) > 1 else None,
+            "window_centres_min": [(trim + 0.5 * (a + b)) * dt_min for a, b in windows],
             "smoothing_sigma_um": sigma_px * px_b,
             "signal_fraction": float(valid.mean()),
             "notes": notes,
@@ -736,7 +740,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "centres": centres_tab,
         "territories_timecourse": terr_course,
     }
-    return summary, out_maps, tables
+    stacks = {"territory_labels_windows": cs.window_labels}
+    return summary, out_maps, tables, stacks
 
 
 def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, spiral_cores):

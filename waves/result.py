@@ -16,8 +16,10 @@ import numpy as np
 
 from waves import io
 from waves.errors import InputError
+from waves.units import Calibration
 
 __all__ = [
+    "STACK_FILES",
     "write_table_csv",
     "read_table_csv",
     "write_analysis",
@@ -37,6 +39,8 @@ MAP_FILES = {
     "amplitude": "amplitude.tif",
     "mean_image": "mean_image.tif",
 }
+
+STACK_FILES = {"territory_labels_windows": "territory_labels_windows.tif"}
 
 TABLE_FILES = {
     "cores_per_frame": "cores_per_frame.csv",
@@ -167,10 +171,19 @@ def write_analysis(analysis, out_dir, *, source: dict) -> pathlib.Path:
     for key, name in TABLE_FILES.items():
         if key in analysis.tables:
             write_table_csv(out / name, analysis.tables[key])
+    labels = analysis.stacks.get("territory_labels_windows")
+    step = analysis.summary.get("analysis", {}).get("window_step_min")
+    if labels is not None and len(labels) and grid:
+        # one frame per time window; the frame interval is the window step
+        cal = Calibration(px, 60.0 * (step or 1.0), "options", "options")
+        io.write_stack(out / STACK_FILES["territory_labels_windows"], labels.astype(np.uint16), calibration=cal,
+                       metadata={"quantity": "territory labels per time window", **meta,
+                                 "window_centres_min": analysis.summary["analysis"]["window_centres_min"]})
     summary = dict(analysis.summary)
     summary["source"] = source
     summary["files"] = sorted(
         [MAP_FILES[k] for k in MAP_FILES if k in analysis.maps]
         + [TABLE_FILES[k] for k in TABLE_FILES if k in analysis.tables]
+        + [STACK_FILES[k] for k in STACK_FILES if len(analysis.stacks.get(k, ())) and grid]
     )
     return io.write_json(out / "summary.json", summary)
