@@ -109,7 +109,25 @@ def build_parser() -> argparse.ArgumentParser:
         "--memory-mb", type=float, default=400.0, metavar="MB", help="working-memory budget per tile"
     )
     p_an.add_argument("--quiet", action="store_true", help="no progress bars")
+    p_an.add_argument(
+        "--no-report", action="store_true", help="do not write report.html (figures, movie)"
+    )
+    from waves.report import command as _report_cmd
+
+    _report_cmd.add_report_options(p_an)
     p_an.set_defaults(func=_cmd_analyse)
+
+    p_rep = sub.add_parser("report", help="write the HTML report of a results folder")
+    _report_cmd.add_arguments(p_rep)
+    p_rep.set_defaults(func=_report_cmd.run_from_args)
+
+    from waves import demo as _demo
+
+    p_demo = sub.add_parser(
+        "demo", help="analyse the bundled sample field and write its HTML report"
+    )
+    _demo.add_arguments(p_demo)
+    p_demo.set_defaults(func=_demo.run_from_args)
 
     from waves import simulate as _simulate
 
@@ -118,6 +136,15 @@ def build_parser() -> argparse.ArgumentParser:
     )
     _simulate.add_arguments(p_sim)
     p_sim.set_defaults(func=_simulate.run_from_args)
+
+    from waves import compare as _compare
+
+    p_cmp = sub.add_parser(
+        "compare",
+        help="fit a model's dispersion relation to analysed stacks and check what it reproduces",
+    )
+    _compare.add_arguments(p_cmp)
+    p_cmp.set_defaults(func=_compare.run_from_args)
     return parser
 
 
@@ -231,6 +258,18 @@ def _cmd_analyse(args: argparse.Namespace) -> int:
     for w in s["warnings"]:
         print(f"warning         {w}")
     print(f"results in      {summary_path.parent}")
+    if not args.no_report:
+        from waves.report import write_report
+
+        report = write_report(
+            args.out,
+            stack_path=args.stack,
+            movie=not args.no_movie,
+            kymograph_line_um=args.kymograph,
+            movie_frames=args.movie_frames,
+            progress=not args.quiet,
+        )
+        print(f"report          {report}")
     return EXIT_OK
 
 

@@ -145,6 +145,19 @@ def analyse_file(
         progress=progress,
     )
     analysis.summary["source"] = source_record(path, stack)
+    # how the stack was read, so pictures can re-read the same frames
+    if isinstance(frames, slice):
+        sel = [frames.start, frames.stop, frames.step]
+    elif frames is None:
+        sel = None
+    else:
+        sel = list(frames)
+    analysis.summary.setdefault("analysis", {})["read"] = {
+        "frames": sel,
+        "bin": int(bin),
+        "channel": channel,
+        "zslice": zslice,
+    }
     analysis.summary["warnings"] = list(stack.warnings) + list(analysis.summary["warnings"])
     if out is not None:
         write_analysis(analysis, out, source=analysis.summary["source"])
