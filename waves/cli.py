@@ -1,7 +1,8 @@
 """Command line: `waves SUBCOMMAND ...`.
 
 `main(argv=None) -> int` is testable in-process.  Exit codes: 0 done, 2 usage
-or bad input (one line on stderr, no traceback), 1 internal error.  `--debug`
+or bad input (one line on stderr, no traceback), 1 internal error, 3 a screen
+finished but some of its stacks failed (each failure is recorded).  `--debug`
 re-raises so the traceback is visible.
 """
 
@@ -145,6 +146,15 @@ def build_parser() -> argparse.ArgumentParser:
     )
     _compare.add_arguments(p_cmp)
     p_cmp.set_defaults(func=_compare.run_from_args)
+
+    from waves import screen as _screen
+
+    p_scr = sub.add_parser(
+        "screen",
+        help="analyse every stack of a CSV sheet on a dask cluster, resumably, and compare groups",
+    )
+    _screen.add_arguments(p_scr)
+    p_scr.set_defaults(func=_screen.run_from_args)
     return parser
 
 
