@@ -39,6 +39,7 @@ SECTIONS = {
     "centres": "Centres and territories",
     "period-timecourse": "Period over the movie",
     "dispersion": "Dispersion",
+    "model": "Measured against a model",
     "maps": "Maps",
     "movie": "Movie",
     "warnings": "Warnings",
@@ -276,6 +277,53 @@ def _dispersion_section(tables: Mapping) -> str:
         fig, "dispersion scatter",
         "Front speed against period, one point per time window and field region (a 3 x 3 grid). In an "
         "excitable medium waves that follow closely travel slower; a rising curve is the dispersion relation."))
+
+
+def _model_section(folder: pathlib.Path) -> str:
+    """What `waves compare` wrote into the folder (compare_<model>.json/.png)."""
+    found = sorted(folder.glob("compare_*.json"))
+    if not found:
+        return _section("model", "<p>No model comparison in this folder. "
+                        "<code>waves compare DIR --model barkley|fhn|relay</code> fits a model's "
+                        "dispersion relation to these measurements; rerun <code>waves report</code> "
+                        "afterwards to show it here.</p>")
+    parts = []
+    for path in found:
+        try:
+            comp = json.loads(path.read_text(encoding="utf-8"))
+        except ValueError:
+            parts.append(f"<p>{_e(path.name)} is not valid JSON; rerun waves compare.</p>")
+            continue
+        model = comp.get("model", path.stem[len("compare_"):])
+        parts.append(f"<h3>{_e(model)}</h3>")
+        png = path.with_suffix(".png")
+        if png.is_file():
+            parts.append(f"<figure>{_img(png.read_bytes(), 'image/png', f'{model} dispersion')}"
+                         "<figcaption>Measured (period, speed) points and medians over the model's "
+                         "dispersion curve with the fitted scales.</figcaption></figure>")
+        fit = comp.get("fit") or {}
+        values, ci = fit.get("values") or {}, fit.get("ci95") or {}
+        rows = [[k, v, *(ci.get(k) or [None, None]), "fixed" if k in (fit.get("fixed") or []) else
+                 ("yes" if (fit.get("constrained") or {}).get(k, True) else "no")] for k, v in values.items()]
+        if rows:
+            parts.append(_table(["fitted scale", "value", "95 % low", "95 % high", "constrained"], rows,
+                                numeric=[False, True, True, True, False]))
+        if fit.get("rms_relative") is not None:
+            parts.append(f"<p>Weighted rms relative residual {_fmt(100 * fit['rms_relative'], 3)} % over "
+                         f"{_e(fit.get('n_points'))} points ({_e(fit.get('n_downweighted'))} down-weighted). "
+                         "The intervals assume independent points and are a lower bound.</p>")
+        checks = comp.get("checks") or []
+        if checks:
+            parts.append(_table(
+                ["quantity", "measured", "model", "relative difference", "reproduced", "note"],
+                [[c.get("quantity"), c.get("measured"), c.get("model"), c.get("relative_difference"),
+                  {True: "yes", False: "NO"}.get(c.get("reproduced"), "not tested"), c.get("note")]
+                 for c in checks],
+                numeric=[False, True, True, True, False, False]))
+        notes = comp.get("notes") or []
+        if notes:
+            parts.append('<ul class="note">' + "".join(f"<li>{_e(n)}</li>" for n in notes) + "</ul>")
+    return _section("model", "\n".join(parts))
 
 
 def _maps_section(figs: list[str]) -> str:
@@ -569,6 +617,7 @@ def write_report(
         _centres_section(summary, tables, territory),
         _timecourse_section(summary, tables),
         _dispersion_section(tables),
+        _model_section(folder),
         _maps_section(figs),
         _movie_section(movie_html),
         _warnings_section(summary, [why] if why else []),
