@@ -69,3 +69,15 @@ def test_delay_embedding_matches_hilbert_phase_for_a_sinusoid():
     diff = np.angle(np.exp(1j * (ph[valid, 0] - 2 * np.pi * t[valid] / period)))
     assert np.abs(diff).max() < 1e-4
     assert np.isnan(ph[-period // 4 :]).all()
+
+
+def test_compiled_phase_and_amplitude_equal_numpy_twin():
+    # STYLE.md practice: compiled kernel against its numpy twin
+    from waves.phase.analytic import phase_and_amplitude_numpy
+
+    rng = np.random.default_rng(4)
+    z = (rng.normal(size=(50, 7, 9)) + 1j * rng.normal(size=(50, 7, 9))).astype(np.complex64)
+    p1, a1 = phase_and_amplitude(z)
+    p2, a2 = phase_and_amplitude_numpy(z)
+    np.testing.assert_allclose(p1, p2, atol=1e-6)
+    np.testing.assert_allclose(a1, a2, rtol=1e-6)

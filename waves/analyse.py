@@ -226,19 +226,29 @@ def clean_buffer(shape: tuple[int, int, int], *, folder: pathlib.Path | None = N
 # --------------------------------------------------------------------------- passes 1 and 2
 
 
-@dataclass(frozen=True)
-class _FirstLook:
-    mean_image: np.ndarray  # (y, x) float32, recorded grid
-    wavelength_px: float | None  # recorded pixels
-
-
-def _first_look(data, block: int) -> _FirstLook:
+def _wavelength_look(data) -> float | None:
+    """Dominant wavelength (recorded pixels) of a dozen frames spread over the movie."""
     nt, ny, nx = data.shape
-    mean = np.zeros((ny, nx), dtype=np.float64)
+    idx = np.linspace(0, nt - 1, min(nt, 12)).astype(int)
+    sample = np.asarray(data[idx], dtype=np.float32)
+    if not np.isfinite(sample).all():
+        return None  # the binning pass names the bad frames
+    # waves span many pixels: a 2x2-binned look finds the wavelength as well, for a quarter of the work
+    look_bin = 2 if min(ny, nx) >= 256 else 1
+    lam = _dominant_wavelength_px(preprocess.bin_frames(sample, look_bin) if look_bin > 1 else sample)
+    return None if lam is None else lam * look_bin
+
+
+def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar) -> np.ndarray:
+    """Read the recording once: bin every frame block into `movie`, refuse
+    non-finite or flat movies, and return the temporal-mean image (binned)."""
+    nt = data.shape[0]
+    mean = np.zeros(movie.shape[1:], dtype=np.float64)
     lo, hi = np.inf, -np.inf
     for t0 in range(0, nt, block):
-        b = np.asarray(data[t0 : t0 + block])
-        if b.dtype.kind == "f" and not np.isfinite(b).all():
+        raw = np.asarray(data[t0 : t0 + block])
+        b = preprocess.bin_frames(raw, factor) if factor > 1 else raw.astype(np.float32)
+        if not np.isfinite(b).all():
             bad = np.flatnonzero(~np.isfinite(b).reshape(len(b), -1).all(axis=1)) + t0
             raise InputError(
                 f"frames {', '.join(map(str, bad[:5]))}{' ...' if len(bad) > 5 else ''} hold NaN or "
@@ -247,40 +257,30 @@ def _first_look(data, block: int) -> _FirstLook:
         mean += b.sum(axis=0, dtype=np.float64)
         lo = min(lo, float(b.min()))
         hi = max(hi, float(b.max()))
+        movie.write(t0, b)
+        bar.update(1)
     if hi - lo <= 0:
         raise InputError(f"the movie is flat: every pixel of every frame is {lo:g}; there are no waves to measure")
-    mean /= nt
-    idx = np.linspace(0, nt - 1, min(nt, 12)).astype(int)
-    sample = np.asarray(data[idx], dtype=np.float32)
-    # waves span many pixels: a 2x2-binned look finds the wavelength as well, for a quarter of the work
-    look_bin = 2 if min(ny, nx) >= 256 else 1
-    lam = _dominant_wavelength_px(preprocess.bin_frames(sample, look_bin) if look_bin > 1 else sample)
-    return _FirstLook(mean_image=mean.astype(np.float32), wavelength_px=None if lam is None else lam * look_bin)
+    return (mean / nt).astype(np.float32)
 
 
-def _clean(data, *, factor: int, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray,
-           block: int, progress: bool, notes: list) -> None:
-    """Bin, register, flatten, remove the mean and smooth, into `movie`."""
-    nt = data.shape[0]
+def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,
+           block: int, bar, workers: int, notes: list) -> None:
+    """Register, flatten, remove the mean and smooth the binned movie in place."""
+    nt = movie.shape[0]
     gain = None
     if options.flatten and float(mean_b.max()) > 0:
         dish = preprocess.dish_mask(mean_b)  # a dark surround must not enter the gain fit
         gain = preprocess.illumination_gain(mean_b, sigma_px=max(mean_b.shape) / 8.0, mask=dish)
         gain = np.maximum(gain, 1e-3 * float(gain.max()))
-    bar = _progress(2 * ((nt + block - 1) // block), "cleaning frames", progress)
-    for t0 in range(0, nt, block):
-        b = np.asarray(data[t0 : t0 + block])
-        movie.write(t0, preprocess.bin_frames(b, factor) if factor > 1 else b.astype(np.float32))
-        bar.update(1)
     shifts = None
     if options.register:
         # registered on the analysis grid; the reference is the temporal median
-        m = movie.frames(0, nt) if movie.path is None else None
-        shifts = preprocess.estimate_drift(m if m is not None else movie._map("r"))
-        del m
+        shifts = preprocess.estimate_drift(movie.view())
         notes.append(f"drift corrected: largest shift {factor * np.abs(shifts).max():.2f} px of the recording")
     reference = mean_b / gain if gain is not None else mean_b
-    for t0 in range(0, nt, block):
+
+    def one(t0):
         b = movie.frames(t0, t0 + block)
         if shifts is not None:
             b = preprocess.apply_drift(b, shifts[t0 : t0 + len(b)])
@@ -291,7 +291,17 @@ def _clean(data, *, factor: int, sigma_px: float, options: AnalysisOptions, movi
             b = preprocess.smooth_space(b, sigma_px=sigma_px)
         movie.write(t0, b)
         bar.update(1)
-    bar.close()
+
+    starts = range(0, nt, block)
+    if workers > 1 and movie.path is None:
+        # frame blocks are independent; scipy.ndimage releases the GIL
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            list(pool.map(one, starts))
+    else:
+        for t0 in starts:
+            one(t0)
 
 
 def _dominant_period_frames(movie: _Movie, passband: tuple[float, float]) -> tuple[float | None, float]:
@@ -454,8 +464,7 @@ def analyse_movie(
 
     t0 = time.perf_counter()
     block = max(1, min(64, int(16e6 // max(ny * nx * 4, 1))))
-    look = _first_look(data, block)
-    lam = look.wavelength_px
+    lam = _wavelength_look(data)
     if options.analysis_bin is not None:
         factor = int(options.analysis_bin)
     else:
@@ -466,12 +475,14 @@ def analyse_movie(
         sigma_px = options.smooth_sigma_um / px_um
     else:
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
-    mean_b = preprocess.bin_frames(look.mean_image, factor) if factor > 1 else look.mean_image
-    nyb, nxb = mean_b.shape
+    nyb, nxb = ny // factor, nx // factor
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
-        _clean(data, factor=factor, sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b,
-               block=block, progress=progress, notes=notes)
+        bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
+        mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar)
+        _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
+               bar=bar, workers=int(options.workers), notes=notes)
+        bar.close()
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         period0, clear_frac = _dominant_period_frames(movie, passband_user)
