@@ -22,7 +22,7 @@ PERIOD = 6.0  # min
 WAVELENGTH = SPEED * PERIOD  # 600 um = 60 px
 
 
-def _movie(sources, *, shape=(200, 200, 200), pulse_width=0.5, style=DarkfieldStyle(), seed=1, speed=SPEED):
+def _movie(sources, *, shape=(200, 200, 200), pulse_width=0.5, style=None, seed=1, speed=SPEED):
     return S.synthetic_movie(
         shape,
         pixel_size_um=PX_UM,
@@ -30,7 +30,7 @@ def _movie(sources, *, shape=(200, 200, 200), pulse_width=0.5, style=DarkfieldSt
         speed_um_per_min=speed,
         sources=sources,
         pulse_width=pulse_width,
-        style=style,
+        style=DarkfieldStyle() if style is None else style,
         seed=seed,
     )
 
@@ -126,7 +126,7 @@ def test_drift_registration_recovers_core_position():
     t = np.arange(m.data.shape[0])
     shifts = np.stack([3 * np.sin(2 * np.pi * t / 200), 6 * t / t[-1]], axis=1)
     drifted = np.stack(
-        [scipy.ndimage.shift(f.astype(np.float32), s, order=1, mode="nearest") for f, s in zip(m.data, shifts)]
+        [scipy.ndimage.shift(f.astype(np.float32), s, order=1, mode="nearest") for f, s in zip(m.data, shifts, strict=True)]
     )
     cores = analyse_movie(drifted, calibration=m.calibration, options=AnalysisOptions(register=True)).summary[
         "spiral_cores"

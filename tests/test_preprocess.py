@@ -11,7 +11,6 @@ from skimage.measure import block_reduce
 
 from waves.errors import InputError, WavesError
 from waves.preprocess import (
-    bin_frames_numpy,
     DEFAULT_PERIOD_MIN_RANGE,
     apply_drift,
     apply_gain,
@@ -19,6 +18,7 @@ from waves.preprocess import (
     bandpass_settle_frames,
     bandpass_time,
     bin_frames,
+    bin_frames_numpy,
     butterworth_sos,
     detrend_time,
     difference_movie,

@@ -273,8 +273,8 @@ def test_phase_pictures_of_a_frame_range_need_the_read_record(results, tmp_path)
 
 def test_model_comparison_section_shows_waves_compare_output(results, tmp_path):
     # `waves compare` (barkley) on the synthetic results, then the report shows its fit and checks
-    from waves.compare import run_from_args
     from waves.cli import build_parser
+    from waves.compare import run_from_args
 
     stack, out = results
     folder = tmp_path / "cmp"

@@ -54,7 +54,7 @@ def test_in_phase_targets_give_voronoi_territories():
     assert len(centres) == 3 and {c["kind"] for c in centres} == {"target"}
     truth_rc = [(src.y_um / PX, src.x_um / PX) for src in sources]
     truth_area = _voronoi_areas(shape[1:], truth_rc) * (PX * PX * 1e-6)
-    for src, area in zip(sources, truth_area):
+    for src, area in zip(sources, truth_area, strict=True):
         c = min(centres, key=lambda c: np.hypot(c["x_um"] - src.x_um, c["y_um"] - src.y_um))
         assert np.hypot(c["x_um"] - src.x_um, c["y_um"] - src.y_um) < WAVELENGTH / 10
         assert c["territory_area_mm2"] == pytest.approx(area, rel=0.10)

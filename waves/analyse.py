@@ -586,7 +586,7 @@ def _signal_without_empty_holes(amp, filled, options, core_tracks):
         return filled
     keep = np.zeros(n + 1, dtype=bool)
     ny, nx = amp.shape
-    for r, c in zip(core_tracks["mean_row"], core_tracks["mean_col"]):
+    for r, c in zip(core_tracks["mean_row"], core_tracks["mean_col"], strict=True):
         r0, c0 = int(min(max(round(r), 0), ny - 1)), int(min(max(round(c), 0), nx - 1))
         window = holes[max(r0 - 1, 0) : r0 + 2, max(c0 - 1, 0) : c0 + 2]
         keep[np.unique(window)] = True
@@ -618,7 +618,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     if len(per["track_id"]):
         rr, cc = np.mgrid[0:nyb, 0:nxb]
         rad = 0.5 * wl_px if np.isfinite(wl_px) else 5.0
-        for r, c in zip(per["mean_row"], per["mean_col"]):
+        for r, c in zip(per["mean_row"], per["mean_col"], strict=True):
             speed_ok &= np.hypot(rr - r, cc - c) > rad
     # centres closer than a quarter wavelength are one
     merge_px = max(2.0, 0.25 * wl_px) if np.isfinite(wl_px) else 3.0

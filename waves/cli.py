@@ -11,9 +11,15 @@ from __future__ import annotations
 import argparse
 import pathlib
 import sys
-from typing import Sequence
+from collections.abc import Sequence
 
 from waves import __version__
+from waves.cli_common import (
+    add_analysis_options,
+    add_calibration_options,
+    analysis_options_from_args,
+    parse_frames,
+)
 from waves.errors import WavesError
 
 __all__ = ["main", "build_parser"]
@@ -29,23 +35,6 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message: str):  # noqa: D401 - argparse API
         raise WavesError(f"{self.prog}: {message} (see '{self.prog} --help')")
-
-
-def _add_calibration_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument(
-        "--pixel-size",
-        dest="pixel_size_um",
-        type=float,
-        metavar="UM",
-        help="pixel size in micrometres; overrides or supplies the file's calibration",
-    )
-    p.add_argument(
-        "--frame-interval",
-        dest="frame_interval_s",
-        type=float,
-        metavar="S",
-        help="seconds between frames; overrides or supplies the file's calibration",
-    )
 
 
 def _add_selection_options(p: argparse.ArgumentParser) -> None:
@@ -68,7 +57,7 @@ def build_parser() -> argparse.ArgumentParser:
         "info", help="print shape, calibration, duration and memory needs of a stack"
     )
     p_info.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
-    _add_calibration_options(p_info)
+    add_calibration_options(p_info)
     _add_selection_options(p_info)
     p_info.set_defaults(func=_cmd_info)
 
@@ -80,35 +69,9 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p_an.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
     p_an.add_argument("--out", required=True, metavar="DIR", help="folder for the results")
-    _add_calibration_options(p_an)
+    add_calibration_options(p_an)
     _add_selection_options(p_an)
-    p_an.add_argument(
-        "--frames", metavar="START:STOP", help="frame range to analyse (stop exclusive)"
-    )
-    p_an.add_argument("--bin", type=int, default=1, metavar="N", help="bin N x N pixels on read")
-    p_an.add_argument(
-        "--period-band",
-        type=float,
-        nargs=2,
-        metavar=("LO", "HI"),
-        help="band of wave periods in minutes (default 2 20)",
-    )
-    p_an.add_argument(
-        "--smooth", type=float, metavar="UM", help="spatial smoothing sigma in um (default: wavelength/12)"
-    )
-    p_an.add_argument(
-        "--phase",
-        choices=("hilbert", "delay"),
-        default="hilbert",
-        help="phase from the analytic signal (default) or by delay embedding (quarter-period lag)",
-    )
-    p_an.add_argument("--register", action="store_true", help="correct rigid drift of the field")
-    p_an.add_argument(
-        "--no-flatten", action="store_true", help="do not correct uneven illumination"
-    )
-    p_an.add_argument(
-        "--memory-mb", type=float, default=400.0, metavar="MB", help="working-memory budget per tile"
-    )
+    add_analysis_options(p_an)
     p_an.add_argument("--quiet", action="store_true", help="no progress bars")
     p_an.add_argument(
         "--no-report", action="store_true", help="do not write report.html (figures, movie)"
@@ -211,37 +174,15 @@ def _cmd_info(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _parse_frames(text: str | None):
-    if text is None:
-        return None
-    parts = text.split(":")
-    try:
-        if len(parts) != 2:
-            raise ValueError
-        start = int(parts[0]) if parts[0] else 0
-        stop = int(parts[1]) if parts[1] else None
-    except ValueError:
-        raise WavesError(f"--frames must look like START:STOP (e.g. 0:300), got {text!r}") from None
-    return slice(start, stop)
-
-
 def _cmd_analyse(args: argparse.Namespace) -> int:
-    from waves.analyse import DEFAULT_PERIOD_BAND_MIN, AnalysisOptions
     from waves.result import analyse_file
 
-    options = AnalysisOptions(
-        period_band_min=tuple(args.period_band) if args.period_band else DEFAULT_PERIOD_BAND_MIN,
-        phase_method=args.phase,
-        flatten=not args.no_flatten,
-        register=args.register,
-        smooth_sigma_um=args.smooth,
-        memory_budget_mb=args.memory_mb,
-    )
+    options = analysis_options_from_args(args)
     result = analyse_file(
         args.stack,
         out=args.out,
         options=options,
-        frames=_parse_frames(args.frames),
+        frames=parse_frames(args.frames),
         bin=args.bin,
         channel=args.channel,
         zslice=args.zslice,

@@ -62,6 +62,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from waves.cli_common import parse_settings
 from waves.dispersion import DispersionCurve, dispersion_curve, spiral_prediction
 from waves.errors import InputError, WavesError
 from waves.models import get_model
@@ -926,19 +927,6 @@ def write_comparison(comp: Comparison, out_dir=None) -> dict:
 # --------------------------------------------------------------------------- CLI
 
 
-def _parse_set(items: Sequence[str]) -> dict:
-    out = {}
-    for item in items or ():
-        if "=" not in item:
-            raise WavesError(f"--set expects NAME=VALUE, got {item!r}")
-        name, value = item.split("=", 1)
-        try:
-            out[name.strip()] = float(value)
-        except ValueError:
-            raise WavesError(f"--set {name.strip()}: value {value!r} is not a number") from None
-    return out
-
-
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the `compare` options to `parser`."""
     parser.add_argument("analysis_dirs", nargs="+", metavar="ANALYSIS_DIR",
@@ -970,7 +958,7 @@ def run_from_args(args: argparse.Namespace) -> int:
     if robust is not None and robust == 0:
         robust = None
     comp = compare_analysis(
-        args.analysis_dirs, args.model, params=_parse_set(args.set_params), spacing=args.spacing,
+        args.analysis_dirs, args.model, params=parse_settings(args.set_params), spacing=args.spacing,
         spiral=not args.no_spiral, tolerance=args.tolerance,
         t_range_min=tuple(args.t_range) if args.t_range else None, robust_scale=robust,
         ke_grid=tuple(args.ke_grid) if args.ke_grid else RELAY_KE_GRID,

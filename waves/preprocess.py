@@ -43,7 +43,6 @@ from numba import njit, prange
 
 # scipy.signal and scikit-image cost about a second to import; they are
 # imported where they are used (band-pass, Otsu threshold, registration).
-
 from waves.errors import InputError, WavesError
 
 __all__ = [

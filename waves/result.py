@@ -67,7 +67,7 @@ def write_table_csv(path, table: dict) -> pathlib.Path:
     arrays = [np.asarray(table[c]) for c in cols]
     n = {len(a) for a in arrays}
     if len(n) > 1:
-        raise InputError(f"table columns differ in length: {dict(zip(cols, map(len, arrays)))}")
+        raise InputError(f"table columns differ in length: {dict(zip(cols, map(len, arrays), strict=True))}")
     rows = len(arrays[0]) if arrays else 0
     with io.atomic_output(path, "w") as fh:
         w = csv.writer(fh, lineterminator="\n")
@@ -84,7 +84,7 @@ def read_table_csv(path) -> dict:
         header = next(r)
         cols = {h: [] for h in header}
         for row in r:
-            for h, v in zip(header, row):
+            for h, v in zip(header, row, strict=True):
                 cols[h].append(v)
     return cols
 

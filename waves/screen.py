@@ -61,6 +61,12 @@ import uuid
 from dataclasses import dataclass, replace
 
 from waves import __version__, io
+from waves.cli_common import (
+    add_analysis_options,
+    add_calibration_options,
+    analysis_options_from_args,
+    parse_frames,
+)
 from waves.errors import InputError, WavesError
 
 __all__ = [
@@ -972,19 +978,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--worker-memory-mb", type=float, metavar="MB",
                    help="local cluster: memory limit per worker (default: memory shared equally)")
     p.add_argument("--no-retry", action="store_true", help="do not retry stacks that failed in an earlier run")
-    p.add_argument("--pixel-size", dest="pixel_size_um", type=float, metavar="UM",
-                   help="pixel size in micrometres for rows without their own pixel_size_um")
-    p.add_argument("--frame-interval", dest="frame_interval_s", type=float, metavar="S",
-                   help="seconds between frames for rows without their own frame_interval_s")
-    p.add_argument("--frames", metavar="START:STOP", help="frame range of every stack (stop exclusive)")
-    p.add_argument("--bin", type=int, default=1, metavar="N", help="bin N x N pixels on read")
-    p.add_argument("--period-band", type=float, nargs=2, metavar=("LO", "HI"),
-                   help="band of wave periods in minutes (default 2 20)")
-    p.add_argument("--smooth", type=float, metavar="UM", help="spatial smoothing sigma in um")
-    p.add_argument("--register", action="store_true", help="correct rigid drift of the field")
-    p.add_argument("--no-flatten", action="store_true", help="do not correct uneven illumination")
-    p.add_argument("--memory-mb", type=float, default=400.0, metavar="MB",
-                   help="working-memory budget per stack analysis")
+    add_calibration_options(p)
+    add_analysis_options(p)
     p.add_argument("--bootstrap", type=int, default=2000, metavar="N", help="bootstrap resamples")
     p.add_argument("--seed", type=int, default=0, help="seed of the bootstrap")
     p.add_argument("--holm", choices=("metric", "all"), default="metric",
@@ -992,36 +987,16 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
-def _parse_frames(text: str | None) -> slice | None:
-    if text is None:
-        return None
-    parts = text.split(":")
-    try:
-        if len(parts) != 2:
-            raise ValueError
-        return slice(int(parts[0]) if parts[0] else 0, int(parts[1]) if parts[1] else None)
-    except ValueError:
-        raise WavesError(f"--frames must look like START:STOP (e.g. 0:300), got {text!r}") from None
-
-
 def run_from_args(args: argparse.Namespace) -> int:
     """`waves screen`: returns the exit code (0 all done, 3 some failed)."""
-    from waves.analyse import DEFAULT_PERIOD_BAND_MIN, AnalysisOptions
-
-    options = AnalysisOptions(
-        period_band_min=tuple(args.period_band) if args.period_band else DEFAULT_PERIOD_BAND_MIN,
-        flatten=not args.no_flatten,
-        register=args.register,
-        smooth_sigma_um=args.smooth,
-        memory_budget_mb=args.memory_mb,
-        workers=1,
-    )
+    # one thread per analysis: the cluster runs one analysis per worker process
+    options = analysis_options_from_args(args, workers=1)
     sheet = read_sheet(args.sheet)
     result = run_screen(
         sheet,
         out=args.out,
         options=options,
-        frames=_parse_frames(args.frames),
+        frames=parse_frames(args.frames),
         bin=args.bin,
         pixel_size_um=args.pixel_size_um,
         frame_interval_s=args.frame_interval_s,

@@ -45,6 +45,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from waves import __version__
+from waves.cli_common import parse_settings
 from waves.errors import WavesError
 from waves.models import get_model
 from waves.models.base import NUMERIC_NAMES, Integrator, check_time_step, stable_dt_limit
@@ -763,20 +764,6 @@ def _clean_field_truth(clean, calibration: Calibration) -> dict:
 # --------------------------------------------------------------------------- CLI
 
 
-def _parse_set(items: Sequence[str]) -> dict:
-    out = {}
-    for item in items or ():
-        if "=" not in item:
-            raise WavesError(f"--set expects NAME=VALUE, got {item!r}")
-        name, value = item.split("=", 1)
-        name = name.strip()
-        try:
-            out[name] = float(value)
-        except ValueError:
-            raise WavesError(f"--set {name}: value {value!r} is not a number") from None
-    return out
-
-
 def _read_toml(path: str) -> dict:
     try:
         import tomllib
@@ -866,7 +853,7 @@ def _float(text: str, what: str) -> float:
 def run_from_args(args: argparse.Namespace) -> int:
     """Run `waves simulate` from parsed arguments; returns the exit code."""
     params = _read_toml(args.params_file) if args.params_file else {}
-    params.update(_parse_set(args.set_params))
+    params.update(parse_settings(args.set_params))
     sizes = []
     for s in args.size:
         try:

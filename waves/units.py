@@ -194,11 +194,11 @@ class Calibration:
     def frame_interval_min(self) -> float:
         return self.frame_interval_s / 60.0
 
-    def binned(self, factor: int) -> "Calibration":
+    def binned(self, factor: int) -> Calibration:
         """Calibration after spatial binning by an integer factor."""
         return replace(self, pixel_size_um=self.pixel_size_um * int(factor))
 
-    def subsampled(self, step: int) -> "Calibration":
+    def subsampled(self, step: int) -> Calibration:
         """Calibration after keeping every `step`-th frame."""
         return replace(self, frame_interval_s=self.frame_interval_s * int(step))
 

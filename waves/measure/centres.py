@@ -86,7 +86,7 @@ def track_centres(
     whole, whole_lab = territories(0)
 
     link_r = 2.0 * merge_radius_px
-    pts = np.array([[f[1], f[2]] for f in found] + [[r, c] for r, c in zip(whole.rows, whole.cols)])
+    pts = np.array([[f[1], f[2]] for f in found] + [[r, c] for r, c in zip(whole.rows, whole.cols, strict=True)])
     groups = _link(pts, link_r) if len(pts) else np.zeros(0, dtype=np.int64)
     n_found = len(found)
     order = []  # groups by first appearance, whole-movie-only centres last

@@ -1,0 +1,106 @@
+"""Command-line pieces shared by several subcommands: calibration and
+analysis options, frame ranges, NAME=VALUE settings.  No heavy imports."""
+
+from __future__ import annotations
+
+import argparse
+from collections.abc import Sequence
+
+from waves.errors import WavesError
+
+__all__ = [
+    "add_calibration_options",
+    "add_analysis_options",
+    "analysis_options_from_args",
+    "parse_frames",
+    "parse_settings",
+]
+
+
+def add_calibration_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--pixel-size",
+        dest="pixel_size_um",
+        type=float,
+        metavar="UM",
+        help="pixel size in micrometres; overrides or supplies the file's calibration",
+    )
+    p.add_argument(
+        "--frame-interval",
+        dest="frame_interval_s",
+        type=float,
+        metavar="S",
+        help="seconds between frames; overrides or supplies the file's calibration",
+    )
+
+
+def add_analysis_options(p: argparse.ArgumentParser) -> None:
+    """Options of the analysis itself (shared by `analyse` and `screen`)."""
+    p.add_argument("--frames", metavar="START:STOP", help="frame range to analyse (stop exclusive)")
+    p.add_argument("--bin", type=int, default=1, metavar="N", help="bin N x N pixels on read")
+    p.add_argument(
+        "--period-band",
+        type=float,
+        nargs=2,
+        metavar=("LO", "HI"),
+        help="band of wave periods in minutes (default 2 20)",
+    )
+    p.add_argument(
+        "--smooth", type=float, metavar="UM", help="spatial smoothing sigma in um (default: wavelength/12)"
+    )
+    p.add_argument(
+        "--phase",
+        choices=("hilbert", "delay"),
+        default="hilbert",
+        help="phase from the analytic signal (default) or by delay embedding (quarter-period lag)",
+    )
+    p.add_argument("--register", action="store_true", help="correct rigid drift of the field")
+    p.add_argument("--no-flatten", action="store_true", help="do not correct uneven illumination")
+    p.add_argument(
+        "--memory-mb", type=float, default=400.0, metavar="MB", help="working-memory budget of an analysis"
+    )
+
+
+def analysis_options_from_args(args: argparse.Namespace, *, workers: int | None = None):
+    from waves.analyse import DEFAULT_PERIOD_BAND_MIN, AnalysisOptions
+
+    extra = {} if workers is None else {"workers": workers}
+    return AnalysisOptions(
+        period_band_min=tuple(args.period_band) if args.period_band else DEFAULT_PERIOD_BAND_MIN,
+        phase_method=args.phase,
+        flatten=not args.no_flatten,
+        register=args.register,
+        smooth_sigma_um=args.smooth,
+        memory_budget_mb=args.memory_mb,
+        **extra,
+    )
+
+
+def parse_frames(text: str | None) -> slice | None:
+    """'START:STOP' (either may be empty) as a slice; None stays None."""
+    if text is None:
+        return None
+    parts = text.split(":")
+    try:
+        if len(parts) != 2:
+            raise ValueError
+        start = int(parts[0]) if parts[0] else 0
+        stop = int(parts[1]) if parts[1] else None
+    except ValueError:
+        raise WavesError(f"--frames must look like START:STOP (e.g. 0:300), got {text!r}") from None
+    return slice(start, stop)
+
+
+def parse_settings(items: Sequence[str] | None) -> dict:
+    """NAME=VALUE strings (from --set) as {name: float}."""
+    out = {}
+    for item in items or ():
+        if "=" not in item:
+            raise WavesError(f"--set expects NAME=VALUE, got {item!r}")
+        name, value = item.split("=", 1)
+        name = name.strip()
+        try:
+            out[name] = float(value)
+        except ValueError:
+            raise WavesError(f"--set {name}: value {value!r} is not a number") from None
+    return out
