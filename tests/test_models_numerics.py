@@ -382,3 +382,22 @@ def test_integrator_fields_are_parameter_times_multiplier(rng):
     np.testing.assert_allclose(it.pf[0], np.float32(0.03) * m, rtol=1e-7)
     it.set_params({**spec.default_params(), "eps": 0.025})  # a ramp step rescales the field
     np.testing.assert_allclose(it.pf[0], np.float32(0.025) * m, rtol=1e-7)
+
+
+def test_barkley_rest_state_never_holds_subnormal_numbers():
+    # regression: values decaying towards rest must reach exactly 0 before
+    # they become subnormal (float32 subnormals are below 1.18e-38, IEEE 754),
+    # which slows every later step by an order of magnitude
+    from waves.models.barkley import FLUSH_EVERY
+
+    spec = get_model("barkley")
+    grid = Grid((24, 24), 0.25)
+    state = np.zeros((2, 24, 24), np.float32)
+    state[1] = 1e-29  # v just above the flush level, decaying as (1 - dt)^n
+    it = Integrator(spec, grid, spec.default_params(), state, dt=0.01, diffusion=1.0)
+    tiny = np.finfo(np.float32).tiny
+    for _ in range(20):
+        it.advance(FLUSH_EVERY - 1)
+        s = np.abs(it.state)
+        assert not np.any((s > 0) & (s < tiny))
+    assert np.all(it.state[1] == 0)  # flushed: 1e-29 * (1 - 0.01)^600 < 1e-30
