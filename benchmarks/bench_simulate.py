@@ -29,7 +29,8 @@ from waves.models.grid import Grid
 from waves.models.stimulus import initial_state
 
 
-def _lean_barkley(u, v, out_u, out_v, lap, dt, inv_h2, a, b, eps):
+def _lean_laplacian(u, lap, inv_h2):
+    """No-flux 5-point Laplacian into a preallocated buffer (slicing, no copies)."""
     lap[...] = -4.0 * u
     lap[1:, :] += u[:-1, :]
     lap[0, :] += u[0, :]
@@ -40,21 +41,16 @@ def _lean_barkley(u, v, out_u, out_v, lap, dt, inv_h2, a, b, eps):
     lap[:, :-1] += u[:, 1:]
     lap[:, -1] += u[:, -1]
     lap *= inv_h2
+
+
+def _lean_barkley(u, v, out_u, out_v, lap, dt, inv_h2, a, b, eps):
+    _lean_laplacian(u, lap, inv_h2)
     out_u[...] = u + dt * (u * (1 - u) * (u - (v + b) / a) / eps + lap)
     out_v[...] = v + dt * (u - v)
 
 
 def _lean_fhn(u, v, out_u, out_v, lap, dt, inv_h2, eps, beta, gamma):
-    lap[...] = -4.0 * u
-    lap[1:, :] += u[:-1, :]
-    lap[0, :] += u[0, :]
-    lap[:-1, :] += u[1:, :]
-    lap[-1, :] += u[-1, :]
-    lap[:, 1:] += u[:, :-1]
-    lap[:, 0] += u[:, 0]
-    lap[:, :-1] += u[:, 1:]
-    lap[:, -1] += u[:, -1]
-    lap *= inv_h2
+    _lean_laplacian(u, lap, inv_h2)
     out_u[...] = u + dt * ((u - u * u * u / 3 - v) / eps + lap)
     out_v[...] = v + dt * eps * (u + beta - gamma * v)
 
