@@ -250,3 +250,29 @@ def test_simulated_stacks_recover_time_and_length_scales(tmp_path):
     sp = [c for c in rec["checks"] if c["quantity"] == "spiral period (min)" and c["folder"].endswith("a_spiral")]
     assert sp[0]["reproduced"] is True
     assert (tmp_path / "cmp" / "compare_barkley.png").stat().st_size > 10000
+
+
+def test_cluster_robust_covariance_equals_hand_sandwich():
+    # common practice, no source: the cluster-robust (sandwich) covariance of a
+    # linear least-squares fit, computed here by hand with numpy
+    from waves.compare import _solve
+
+    rng = np.random.default_rng(12)
+    x = np.linspace(0, 1, 24)
+    clusters = np.repeat(np.arange(6), 4)
+    shared = rng.normal(0, 0.3, 6)[clusters]  # errors shared within a cluster
+    y = 1.0 + 2.0 * x + shared + rng.normal(0, 0.05, x.size)
+    X = np.stack([np.ones_like(x), x], axis=1)
+    beta, _, _, cov, dof = _solve(lambda b: y - X @ b, np.zeros(2), robust_scale=None, clusters=clusters)
+    ref_beta = np.linalg.lstsq(X, y, rcond=None)[0]
+    e = y - X @ ref_beta
+    bread = np.linalg.inv(X.T @ X)
+    meat = sum(np.outer(X[clusters == g].T @ e[clusters == g], X[clusters == g].T @ e[clusters == g])
+               for g in range(6))
+    ref_cov = bread @ meat @ bread * 6 / 5
+    np.testing.assert_allclose(beta, ref_beta, rtol=1e-6)
+    np.testing.assert_allclose(cov, ref_cov, rtol=1e-4)
+    assert dof == 5
+    # and the clustered errors make it wider than the independent-points formula
+    iid = _solve(lambda b: y - X @ b, np.zeros(2), robust_scale=None)[3]
+    assert cov[1, 1] > iid[1, 1]

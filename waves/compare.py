@@ -40,13 +40,17 @@ Between rings the model curve is the monotone cubic interpolation of
 linearly in log T, and such points are marked out of the model's range (the
 model cannot carry those trains).
 
-Confidence intervals: covariance s^2 (J^T J)^-1 at the optimum, J the
-Jacobian of the (loss-weighted) residuals that least_squares returns and
-s^2 = 2 cost / (n - p) (sum of squared residuals / (n - p) for plain least
-squares); 95 % intervals from Student's t with n - p degrees of freedom, on
-the log scale (so intervals of the scales are asymmetric).  They treat the
-points as independent, which overlapping windows of one movie are not: read
-them as a lower bound on the uncertainty.  A scale whose interval spans more
+Confidence intervals, on the log scale (so intervals of the scales are
+asymmetric), from Student's t.  Points from analysis folders are not
+independent: the regions of one time window see the same waves and
+consecutive windows share half their frames.  So their covariance is the
+cluster-robust sandwich over clusters of two consecutive windows (G
+clusters, G - 1 degrees of freedom; `window_clusters`).  Points given
+without clusters get s^2 (J^T J)^-1, J the Jacobian of the (loss-weighted)
+residuals that least_squares returns and s^2 = 2 cost / (n - p), with
+n - p degrees of freedom.  Neither holds a bias of the measurement itself
+(a few per cent for the analyser near pacemakers and field edges).
+A scale whose interval spans more
 than a factor 2 is reported as not constrained (all periods where the curve
 is flat, for instance, determine only s_l / s_t).
 """
@@ -273,6 +277,22 @@ class ScaleFit:
         }
 
 
+def window_clusters(measured: Measured) -> np.ndarray:
+    """Cluster labels of the dispersion points for the interval estimate: the
+    regions of one time window see the same waves, and consecutive windows
+    share half their frames, so each folder's windows are taken in
+    consecutive pairs, one cluster a pair."""
+    labels = np.zeros(measured.t_min.shape, dtype=np.int64)
+    next_label = 0
+    for f in np.unique(measured.folder_index):
+        sel = measured.folder_index == f
+        times = np.unique(measured.t_min[sel])
+        rank = np.searchsorted(times, measured.t_min[sel])
+        labels[sel] = next_label + rank // 2
+        next_label += int(rank.max()) // 2 + 1
+    return labels
+
+
 def _points(period_min, speed_um_per_min, n_free: int) -> tuple[np.ndarray, np.ndarray]:
     P = np.asarray(period_min, np.float64).ravel()
     V = np.asarray(speed_um_per_min, np.float64).ravel()
@@ -297,8 +317,15 @@ def _check_robust_scale(robust_scale) -> float | None:
     return s
 
 
-def _solve(residuals, x0: np.ndarray, *, robust_scale: float | None, lower=None, upper=None):
-    """least_squares, robust weights and the covariance at the optimum (module doc)."""
+def _solve(residuals, x0: np.ndarray, *, robust_scale: float | None, lower=None, upper=None, clusters=None):
+    """least_squares, robust weights and the covariance at the optimum (module doc).
+
+    With `clusters` (one label per point; points of one label share their
+    errors, e.g. the regions of one time window) the covariance is the
+    cluster-robust sandwich (J^T J)^-1 (sum_g J_g^T r_g r_g^T J_g) (J^T J)^-1
+    times G / (G - 1), with G - 1 degrees of freedom (common practice for
+    correlated errors, no single source); fewer than 3 clusters give no
+    finite interval."""
     from scipy.optimize import least_squares
 
     p = x0.size
@@ -321,7 +348,23 @@ def _solve(residuals, x0: np.ndarray, *, robust_scale: float | None, lower=None,
     s2 = 2.0 * float(res.cost) / dof if dof > 0 else math.nan
     J = res.jac
     try:
-        cov = np.linalg.inv(J.T @ J) * s2
+        bread = np.linalg.inv(J.T @ J)
+        if clusters is None:
+            cov = bread * s2
+        else:
+            labels = np.asarray(clusters)
+            groups = np.unique(labels)
+            g = len(groups)
+            if g < 3:
+                raise np.linalg.LinAlgError
+            rw = r * np.sqrt(w)  # residuals on the scale of the robust Jacobian
+            meat = np.zeros((p, p))
+            for lab in groups:
+                sel = labels == lab
+                score = J[sel].T @ rw[sel]
+                meat += np.outer(score, score)
+            cov = bread @ meat @ bread * (g / (g - 1.0))
+            dof = g - 1
         if not np.all(np.isfinite(cov)):
             raise np.linalg.LinAlgError
     except np.linalg.LinAlgError:
@@ -351,8 +394,9 @@ def _rms(r: np.ndarray, w: np.ndarray) -> float:
     return float(np.sqrt(np.sum(w * r * r) / np.sum(w)))
 
 
-_METHOD = ("least squares on log speed ({loss}); 95 % intervals from the covariance s^2 (J^T J)^-1 "
-           "at the optimum and Student's t with n - p degrees of freedom")
+_METHOD = ("least squares on log speed ({loss}); 95 % intervals from the covariance at the optimum and "
+           "Student's t: cluster-robust over pairs of consecutive time windows (G - 1 degrees of freedom) "
+           "when the points come from analysis folders, else s^2 (J^T J)^-1 with n - p")
 
 
 def fit_scales(
@@ -363,6 +407,7 @@ def fit_scales(
     time_scale_s: float | None = None,
     length_scale_um: float | None = None,
     robust_scale: float | None = DEFAULT_ROBUST_SCALE,
+    clusters=None,
 ) -> ScaleFit:
     """Fit time_scale_s (s per model time unit) and length_scale_um (um per
     model length unit) of a dimensionless model's curve to measured
@@ -410,7 +455,8 @@ def fit_scales(
     else:
         lst = math.log(fixed["time_scale_s"] / 60.0)
         x0 = [float(np.median(lV + lst - _log_speed(curve, lP - lst)))]
-    x, r, w, cov, dof = _solve(residuals, np.asarray(x0, np.float64), robust_scale=robust_scale)
+    x, r, w, cov, dof = _solve(residuals, np.asarray(x0, np.float64), robust_scale=robust_scale,
+                               clusters=clusters)
     values, ci, constrained = dict(fixed), {}, {}
     notes = []
     for i, k in enumerate(free):
@@ -471,6 +517,7 @@ def fit_relay(
     diffusion_um2_per_min: float | None = None,
     ke_per_min: float | None = None,
     robust_scale: float | None = DEFAULT_ROBUST_SCALE,
+    clusters=None,
 ) -> ScaleFit:
     """Fit the relay model's D (diffusion_um2_per_min) and ke (ke_per_min) to measured points.
 
@@ -548,7 +595,7 @@ def fit_relay(
             lb.append(kes[0])
             ub.append(kes[-1])
     x, r, w, cov, dof = _solve(residuals, np.asarray(x0, np.float64), robust_scale=robust_scale,
-                               lower=lb, upper=ub)
+                               lower=lb, upper=ub, clusters=clusters)
     values, ci, constrained = dict(fixed), {}, {}
     notes = []
     for i, k in enumerate(free):
@@ -657,7 +704,7 @@ class _Model:
         self.s_l_um = s_l_um  # um per model length unit
 
 
-def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir, use_cache, notes):
+def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir, use_cache, notes, clusters=None):
     from waves.models.relay import LENGTH_UNIT_UM
 
     rest = dict(params or {})
@@ -676,7 +723,8 @@ def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir,
             notes.append(f"ke = {ke:g} /min left out: {' '.join(str(exc).split())}")
     if not curves:
         raise WavesError("no ke value of the grid gives an excitable relay medium; give other --ke-grid values")
-    fit = fit_relay(curves, P, V, diffusion_um2_per_min=D_fixed, ke_per_min=ke_fixed, robust_scale=robust_scale)
+    fit = fit_relay(curves, P, V, diffusion_um2_per_min=D_fixed, ke_per_min=ke_fixed, robust_scale=robust_scale,
+                    clusters=clusters)
     D, ke = fit.values["diffusion_um2_per_min"], fit.values["ke_per_min"]
     D0 = curves[0][1].diffusion * LENGTH_UNIT_UM ** 2
     s_l = LENGTH_UNIT_UM * math.sqrt(D / D0)
@@ -701,12 +749,12 @@ def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir,
     return fit, _Model(speed, curve, 1.0, s_l), numerics, model_params, spiral_params
 
 
-def _fit_scaled_model(spec, P, V, params, *, spacing, robust_scale, cache_dir, use_cache):
+def _fit_scaled_model(spec, P, V, params, *, spacing, robust_scale, cache_dir, use_cache, clusters=None):
     given = dict(params or {})
     ts = given.pop("time_scale_s", None)
     ls = given.pop("length_scale_um", None)
     c = dispersion_curve(spec.name, params=given, spacing=spacing, cache_dir=cache_dir, use_cache=use_cache)
-    fit = fit_scales(c, P, V, time_scale_s=ts, length_scale_um=ls, robust_scale=robust_scale)
+    fit = fit_scales(c, P, V, time_scale_s=ts, length_scale_um=ls, robust_scale=robust_scale, clusters=clusters)
     s_t = fit.values["time_scale_s"] / 60.0
     s_l = fit.values["length_scale_um"]
 
@@ -757,16 +805,17 @@ def compare_analysis(
         folders = [folders]
     measured = pool_measured([read_measured(f, t_range_min=t_range_min) for f in folders])
     P, V = measured.period_min, measured.speed_um_per_min
+    clusters = window_clusters(measured)
     notes: list[str] = []
     if spec.name == "relay":
         fit, mod, numerics, model_params, spiral_params = _fit_relay_model(
             P, V, params, spacing=spacing, ke_grid=ke_grid, robust_scale=robust_scale,
-            cache_dir=cache_dir, use_cache=use_cache, notes=notes)
+            cache_dir=cache_dir, use_cache=use_cache, notes=notes, clusters=clusters)
         spiral_spacing = 0.4 if spacing is None else spacing  # 40 um: a 2-D relay run of seconds
     else:
         fit, mod, numerics, model_params, spiral_params = _fit_scaled_model(
             spec, P, V, params, spacing=spacing, robust_scale=robust_scale, cache_dir=cache_dir,
-            use_cache=use_cache)
+            use_cache=use_cache, clusters=clusters)
         spiral_spacing = spacing
     notes.extend(fit.notes)
 

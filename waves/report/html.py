@@ -311,7 +311,8 @@ def _model_section(folder: pathlib.Path) -> str:
         if fit.get("rms_relative") is not None:
             parts.append(f"<p>Weighted rms relative residual {_fmt(100 * fit['rms_relative'], 3)} % over "
                          f"{_e(fit.get('n_points'))} points ({_e(fit.get('n_downweighted'))} down-weighted). "
-                         "The intervals assume independent points and are a lower bound.</p>")
+                         "The intervals allow for points of one time window (and its neighbour) sharing their errors; "
+                         "a bias of the measurement itself is not in them.</p>")
         checks = comp.get("checks") or []
         if checks:
             parts.append(_table(
