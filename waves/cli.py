@@ -19,6 +19,7 @@ from waves.cli_common import (
     add_calibration_options,
     analysis_options_from_args,
     parse_frames,
+    summary_lines,
 )
 from waves.errors import WavesError
 
@@ -191,23 +192,7 @@ def _cmd_analyse(args: argparse.Namespace) -> int:
         progress=not args.quiet,
     )
     summary_path = pathlib.Path(args.out) / "summary.json"
-    s = result.summary
-
-    def fmt(q, unit):
-        return "not measured" if q is None else f"{q['median']:.3g} {unit} (IQR {q['q25']:.3g}-{q['q75']:.3g}, n={q['n']})"
-
-    print(f"period          {fmt(s['period_min'], 'min')}")
-    print(f"front speed     {fmt(s['front_speed_um_per_min'], 'um/min')}")
-    print(f"wavelength      {fmt(s['wavelength_um'], 'um')}")
-    print(f"spiral cores    {len(s['spiral_cores'])} persistent")
-    for c in s["centres"]:
-        per = "?" if c["period_min"] is None else f"{c['period_min']:.3g}"
-        print(
-            f"centre {c['id']:<8d} {c['kind']:<7s} at x {c['x_um']:.0f} um, y {c['y_um']:.0f} um; "
-            f"period {per} min; territory {c['territory_area_mm2']:.3g} mm^2"
-        )
-    for w in s["warnings"]:
-        print(f"warning         {w}")
+    print("\n".join(summary_lines(result.summary)))
     print(f"results in      {summary_path.parent}")
     if not args.no_report:
         from waves.report import write_report

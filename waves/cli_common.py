@@ -14,6 +14,7 @@ __all__ = [
     "analysis_options_from_args",
     "parse_frames",
     "parse_settings",
+    "summary_lines",
 ]
 
 
@@ -104,3 +105,27 @@ def parse_settings(items: Sequence[str] | None) -> dict:
         except ValueError:
             raise WavesError(f"--set {name}: value {value!r} is not a number") from None
     return out
+
+
+def summary_lines(summary: dict) -> list[str]:
+    """The lines `waves analyse` and `waves demo` print about a result."""
+
+    def fmt(q, unit):
+        if q is None:
+            return "not measured"
+        return f"{q['median']:.3g} {unit} (IQR {q['q25']:.3g}-{q['q75']:.3g}, n={q['n']})"
+
+    lines = [
+        f"period          {fmt(summary.get('period_min'), 'min')}",
+        f"front speed     {fmt(summary.get('front_speed_um_per_min'), 'um/min')}",
+        f"wavelength      {fmt(summary.get('wavelength_um'), 'um')}",
+        f"spiral cores    {len(summary.get('spiral_cores') or [])} persistent",
+    ]
+    for c in summary.get("centres") or []:
+        per = "?" if c["period_min"] is None else f"{c['period_min']:.3g}"
+        lines.append(
+            f"centre {c['id']:<8d} {c['kind']:<7s} at x {c['x_um']:.0f} um, y {c['y_um']:.0f} um; "
+            f"period {per} min; territory {c['territory_area_mm2']:.3g} mm^2"
+        )
+    lines += [f"warning         {w}" for w in summary.get("warnings") or []]
+    return lines

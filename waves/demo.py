@@ -57,12 +57,9 @@ def run_from_args(args: argparse.Namespace) -> int:
 
     s = json.loads((report.parent / "summary.json").read_text(encoding="utf-8"))
 
-    def fmt(q, unit):
-        return "not measured" if q is None else f"{q['median']:.3g} {unit} (IQR {q['q25']:.3g}-{q['q75']:.3g})"
+    from waves.cli_common import summary_lines
 
     print(f"sample          {sample_path()}")
-    print(f"period          {fmt(s.get('period_min'), 'min')}")
-    print(f"front speed     {fmt(s.get('front_speed_um_per_min'), 'um/min')}")
-    print(f"spiral cores    {len(s.get('spiral_cores') or [])} persistent")
+    print("\n".join(summary_lines(s)))
     print(f"report          {report.resolve()}")
     return 0
