@@ -38,6 +38,7 @@ from waves.models.base import (
     flush,
     flush_numpy,
     laplacian_numpy,
+    masked_laplacian,
     param_at,
     params_numpy,
     row_neighbours,
@@ -130,12 +131,7 @@ def run_steps(S, S2, nsteps, dt, inv_h2, D, p, pf, fidx, occ, dom, periodic, gen
                     jm, jp = col_neighbours(j, nx, periodic)
                     uc = ur[j]
                     vc = vr[j]
-                    lap = (
-                        dom[im, j] * (um[j] - uc)
-                        + dom[ip, j] * (up[j] - uc)
-                        + dom[i, jm] * (ur[jm] - uc)
-                        + dom[i, jp] * (ur[jp] - uc)
-                    )
+                    lap = masked_laplacian(um, up, ur, dom, i, j, im, ip, jm, jp)
                     a = param_at(p, pf, fidx, 0, i, j)
                     b = param_at(p, pf, fidx, 1, i, j)
                     e = param_at(p, pf, fidx, 2, i, j)

@@ -94,6 +94,7 @@ __all__ = [
     "row_neighbours",
     "col_neighbours",
     "param_at",
+    "masked_laplacian",
     "laplacian_numpy",
     "params_numpy",
     "diffusion_dt_limit",
@@ -176,6 +177,20 @@ def param_at(p, pf, fidx, k, i, j):
     if f >= 0:
         return pf[f, i, j]
     return p[k]
+
+
+@njit(cache=True, nogil=True, inline="always")
+def masked_laplacian(um, up, ur, dom, i, j, im, ip, jm, jp):
+    """Undivided 5-point Laplacian at (i, j) of the rows above (um), below (up)
+    and at (ur) row i, with no flux into obstacles (dom = 0 there); the
+    general path of every model kernel (twin: `laplacian_numpy`)."""
+    uc = ur[j]
+    return (
+        dom[im, j] * (um[j] - uc)
+        + dom[ip, j] * (up[j] - uc)
+        + dom[i, jm] * (ur[jm] - uc)
+        + dom[i, jp] * (ur[jp] - uc)
+    )
 
 
 def laplacian_numpy(u: np.ndarray, dom: np.ndarray, periodic: bool, inv_h2) -> np.ndarray:

@@ -30,6 +30,7 @@ from waves.models.base import (
     flush,
     flush_numpy,
     laplacian_numpy,
+    masked_laplacian,
     param_at,
     params_numpy,
     row_neighbours,
@@ -92,12 +93,7 @@ def run_steps(S, S2, nsteps, dt, inv_h2, D, p, pf, fidx, occ, dom, periodic, gen
                 for j in range(nx):
                     jm, jp = col_neighbours(j, nx, periodic)
                     uc = ur[j]
-                    lap = (
-                        dom[im, j] * (um[j] - uc)
-                        + dom[ip, j] * (up[j] - uc)
-                        + dom[i, jm] * (ur[jm] - uc)
-                        + dom[i, jp] * (ur[jp] - uc)
-                    )
+                    lap = masked_laplacian(um, up, ur, dom, i, j, im, ip, jm, jp)
                     a = param_at(p, pf, fidx, 0, i, j)
                     uo[j] = flush(uc + dom[i, j] * dt * (occ[i, j] * _reaction(uc, a) + Dh * lap))
         for k in range(probe_i.size):

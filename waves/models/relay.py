@@ -95,6 +95,7 @@ from waves.models.base import (
     ModelSpec,
     col_neighbours,
     laplacian_numpy,
+    masked_laplacian,
     param_at,
     params_numpy,
     row_neighbours,
@@ -307,12 +308,7 @@ def run_steps(S, S2, nsteps, dt, inv_h2, D, p, pf, fidx, occ, dom, periodic, gen
                     gc = gr[j]
                     rc = rr[j]
                     bc = br[j]
-                    lap = (
-                        dom[im, j] * (gm[j] - gc)
-                        + dom[ip, j] * (gp[j] - gc)
-                        + dom[i, jm] * (gr[jm] - gc)
-                        + dom[i, jp] * (gr[jp] - gc)
-                    )
+                    lap = masked_laplacian(gm, gp, gr, dom, i, j, im, ip, jm, jp)
                     ke = param_at(p, pf, fidx, 12, i, j)
                     dg, drho, db = _reaction(gc, rc, bc, ke, occ[i, j], k1, k2, f2a, f2b, c,
                                              n0, n1, d0, d1, qs, kb, ks)
@@ -326,12 +322,7 @@ def run_steps(S, S2, nsteps, dt, inv_h2, D, p, pf, fidx, occ, dom, periodic, gen
                     gc = gr[j]
                     rc = rr[j]
                     bc = br[j]
-                    lap = (
-                        dom[im, j] * (gm[j] - gc)
-                        + dom[ip, j] * (gp[j] - gc)
-                        + dom[i, jm] * (gr[jm] - gc)
-                        + dom[i, jp] * (gr[jp] - gc)
-                    )
+                    lap = masked_laplacian(gm, gp, gr, dom, i, j, im, ip, jm, jp)
                     ck1, ck2, cf2a, cf2b, cc, cn0, cn1, cd0, cd1, cqs, ckb, cks = _coefficients(
                         param_at(p, pf, fidx, 0, i, j),
                         param_at(p, pf, fidx, 1, i, j),
