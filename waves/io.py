@@ -167,13 +167,30 @@ class Stack:
     binning or conversion, otherwise an in-memory array; its dtype is the
     file's (uint8, uint16, float32) unless binned, RGB or converted (float32).
     `calibration` is after frame-step subsampling and binning; `info`
-    describes the whole file.
+    describes the whole file.  `first_frame`, `frame_step` and `bin` say how
+    the frames were selected and binned: frame i of `data` is file frame
+    ``first_frame + i * frame_step``, at ``first_frame * dt`` plus its own
+    time (dt the file's frame interval), and binned pixel (r, c) is centred
+    on file pixel ``(r * bin + (bin - 1) / 2, c * bin + (bin - 1) / 2)``.
     """
 
     data: np.ndarray
     calibration: Calibration
     info: StackInfo
     warnings: tuple[str, ...]
+    first_frame: int = 0
+    frame_step: int = 1
+    bin: int = 1  # noqa: A003 - the name users know from ImageJ
+
+    @property
+    def start_min(self) -> float:
+        """File time of the first selected frame, in minutes."""
+        return self.first_frame * self.calibration.frame_interval_min / self.frame_step
+
+    @property
+    def origin_um(self) -> float:
+        """File position (um, x and y alike) of the centre of pixel (0, 0) of `data`."""
+        return 0.5 * (self.bin - 1) * self.calibration.pixel_size_um / self.bin
 
     @property
     def n_frames(self) -> int:
@@ -1180,7 +1197,8 @@ def read_stack(
         cal = cal.subsampled(step)
     if factor > 1:
         cal = cal.binned(factor)
-    return Stack(data=data, calibration=cal, info=info, warnings=tuple(notes))
+    return Stack(data=data, calibration=cal, info=info, warnings=tuple(notes), first_frame=int(start),
+                 frame_step=int(step), bin=factor)
 
 
 def iter_blocks(stack: Stack, *, frames_per_block: int) -> Iterator[tuple[int, np.ndarray]]:

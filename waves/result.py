@@ -144,6 +144,7 @@ def analyse_file(
         scratch_dir=scratch,
         progress=progress,
     )
+    _to_file_coordinates(analysis, stack)
     analysis.summary["source"] = source_record(path, stack)
     # how the stack was read, so pictures can re-read the same frames
     if isinstance(frames, slice):
@@ -162,6 +163,46 @@ def analyse_file(
     if out is not None:
         write_analysis(analysis, out, source=analysis.summary["source"])
     return analysis
+
+
+_TIME_KEYS = ("t_min", "first_min", "last_min")
+_POSITION_KEYS = ("x_um", "y_um")
+
+
+def _to_file_coordinates(analysis, stack) -> None:
+    """Put times and positions of an analysis of a frame range or a binned
+    read into the file's own time and pixel coordinates (in place).
+
+    `analyse_movie` counts time from the first frame it is given and
+    positions from the centre of its pixel (0, 0); a read from frame
+    `first_frame` on is `stack.start_min` later, and a read binned by b has
+    its pixel (0, 0) centred (b - 1) / 2 file pixels from the file's."""
+    dt, dx, f0, step = stack.start_min, stack.origin_um, stack.first_frame, stack.frame_step
+    if dt == 0 and dx == 0 and step == 1:
+        return
+
+    def shift(record) -> None:
+        for k in _TIME_KEYS:
+            if record.get(k) is not None:
+                record[k] = record[k] + dt
+        for k in _POSITION_KEYS:
+            if record.get(k) is not None:
+                record[k] = record[k] + dx
+        if record.get("frame") is not None:
+            record["frame"] = f0 + np.asarray(record["frame"]) * step
+
+    s = analysis.summary
+    for key in ("spiral_cores", "centres", "period_timecourse"):
+        for rec in s.get(key) or ():
+            shift(rec)
+    an = s.get("analysis") or {}
+    if an.get("window_centres_min") is not None:
+        an["window_centres_min"] = [t + dt for t in an["window_centres_min"]]
+    if an.get("grid"):
+        an["grid"] = {**an["grid"], "origin_x_um": an["grid"]["origin_x_um"] + dx,
+                      "origin_y_um": an["grid"]["origin_y_um"] + dx}
+    for table in analysis.tables.values():
+        shift(table)
 
 
 def write_analysis(analysis, out_dir, *, source: dict) -> pathlib.Path:
