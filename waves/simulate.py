@@ -25,8 +25,16 @@ the same scaled value (clipped to 0..1) through `waves.render.DarkfieldRenderer`
 
 Ground truth: variable 0 is recorded every step at probe pixels; its upward
 crossings of the model's threshold (linearly interpolated between steps)
-after the first third of the run give one period per probe (median of the
-intervals); the sidecar reports their median, quartiles, range and count.
+after the transient (`transient_min`, default the first third of the run)
+give one period per probe (median of the intervals); the sidecar reports their
+median, quartiles, range and count.
+
+Grid resolution: before the run, the front speed at the run's grid and time
+step is compared with its converged value by a cheap 1-D estimate
+(`waves.models.resolution`); the estimate goes to the sidecar's
+numerics.front_resolution, and an error above FRONT_SPEED_TOLERANCE (2 %) adds
+a warning (SimulationResult.warnings, the sidecar's warnings, and stderr from
+the command line) naming the error and the refinement that fixes it.
 """
 
 from __future__ import annotations
@@ -49,8 +57,10 @@ from waves.cli_common import parse_settings
 from waves.errors import WavesError
 from waves.models import get_model
 from waves.models.base import NUMERIC_NAMES, Integrator, check_time_step, stable_dt_limit
+from waves.models.crossings import period_from_crossings, upward_crossings
 from waves.models.grid import BOUNDARIES, Grid
 from waves.models.heterogeneity import Heterogeneity, Ramp, add_noise
+from waves.models.resolution import front_resolution
 from waves.models.stimulus import (
     INITIAL_CONDITIONS,
     ROTATIONS,
@@ -88,6 +98,8 @@ _NOISE_INTERVAL = 0.05
 _MAX_COARSENING = 1.5
 # fraction of the run treated as transient for the ground-truth period
 _TRANSIENT_FRACTION = 1.0 / 3.0
+# a run whose 1-D front speed estimate is off by more than this fraction is warned about
+FRONT_SPEED_TOLERANCE = 0.02
 
 
 @dataclass(frozen=True)
@@ -112,43 +124,10 @@ class SimulationResult:
     final_state: np.ndarray
     wall_time_s: float
     cell_updates_per_s: float
+    warnings: tuple[str, ...] = ()
 
 
 # --------------------------------------------------------------------------- truth
-
-
-def upward_crossings(trace: np.ndarray, times: np.ndarray, threshold: float,
-                     previous: np.ndarray | None = None, previous_time: float | None = None):
-    """Times of upward crossings of `threshold` per column of trace (nt, nprobe).
-
-    Linear interpolation between samples.  `previous` (nprobe,) with
-    `previous_time` is the sample before trace[0], so a trace may be fed in
-    chunks.  Returns a list (one array per probe).
-    """
-    trace = np.asarray(trace, np.float64)
-    times = np.asarray(times, np.float64)
-    if previous is not None:
-        trace = np.vstack([np.asarray(previous, np.float64)[None], trace])
-        times = np.concatenate([[previous_time], times])
-    out = []
-    for k in range(trace.shape[1]):
-        x = trace[:, k]
-        below = x[:-1] < threshold
-        above = x[1:] >= threshold
-        idx = np.nonzero(below & above)[0]
-        frac = (threshold - x[idx]) / (x[idx + 1] - x[idx])
-        out.append(times[idx] + frac * (times[idx + 1] - times[idx]))
-    return out
-
-
-def period_from_crossings(crossing_times: np.ndarray, *, after: float = -math.inf,
-                          min_intervals: int = 2) -> float | None:
-    """Median interval between successive crossings later than `after`, or None."""
-    t = np.asarray(crossing_times, np.float64)
-    t = t[t > after]
-    if t.size < min_intervals + 1:
-        return None
-    return float(np.median(np.diff(t)))
 
 
 def _summary(values: list[float]) -> dict | None:
@@ -280,6 +259,7 @@ def simulate(
     probes_um: Sequence[tuple[float, float]] | None = None,
     threads: int | None = None,
     truth_analysis: bool = True,
+    transient_min: float | None = None,
     progress: bool = False,
 ) -> SimulationResult:
     """Run `model` and write (or return) a calibrated movie with its ground truth.
@@ -311,7 +291,9 @@ def simulate(
     the default style when None).  oversample: grid refinement factor (None:
     automatic).  probes_um: (y_um, x_um) points for the ground truth (default
     a 4 x 4 lattice).  threads: compiled-kernel threads (None: automatic, see
-    `waves.models.base.Integrator`).  progress: tqdm bar on stderr.
+    `waves.models.base.Integrator`).  transient_min: ground-truth periods
+    from crossings after this time (default: a third of the run).  progress:
+    tqdm bar on stderr.
     With out=None the frames are returned in memory (SimulationResult.frames),
     else streamed to `out` and frames is None.
     """
@@ -438,6 +420,21 @@ def simulate(
     frame_model = frame_interval_s / time_scale_s
     steps_per_frame = max(1, math.ceil(frame_model / dt_max * (1 - 1e-12)))
     dt = frame_model / steps_per_frame
+    if transient_min is None:
+        t_after_min = _TRANSIENT_FRACTION * run_min
+    else:
+        try:
+            t_after_min = float(transient_min)
+        except (TypeError, ValueError):
+            t_after_min = math.nan
+        if not (math.isfinite(t_after_min) and 0 <= t_after_min < run_min):
+            raise WavesError(
+                f"transient_min must lie in 0..{run_min:g} min (the run), got {transient_min!r}"
+            )
+    resolution, run_warnings = _front_resolution(
+        spec, model_params, h=h, dt=dt, diffusion=diffusion, pixel_size_um=pixel_size_um,
+        oversample=oversample,
+    )
 
     # ---- initial state, stimuli, probes
     field_um = (ny_out * pixel_size_um, nx_out * pixel_size_um)
@@ -575,6 +572,7 @@ def simulate(
             "steps": steps_per_frame * (n_frames - 1),
             "r_diffusion": diffusion * dt / (h * h),
             "threads": integ.threads,
+            "front_resolution": resolution,
         },
         "scales": {"time_scale_s": time_scale_s, "length_scale_um": length_scale_um},
         "grid": {**grid.to_dict(), "shape_yx_out": [ny_out, nx_out]},
@@ -691,7 +689,7 @@ def simulate(
         writer.close()
 
     # ---- ground truth
-    t_after = _TRANSIENT_FRACTION * step * dt
+    t_after = t_after_min * 60.0 / time_scale_s
     probe_rows = []
     periods_model = []
     for k, (i, j) in enumerate(probes):
@@ -708,8 +706,8 @@ def simulate(
         })
     to_min = time_scale_s / 60.0
     truth = {
-        "method": "upward threshold crossings of variable 0 at probe points, after the first "
-                  "third of the run; median interval per probe",
+        "method": "upward threshold crossings of variable 0 at probe points, after the "
+                  "transient (default the first third of the run); median interval per probe",
         "threshold": spec.threshold,
         "transient_model": t_after,
         "transient_min": t_after * time_scale_s / 60.0,
@@ -726,6 +724,7 @@ def simulate(
     rate = updates / kernel_time if kernel_time > 0 else float("nan")
     wall = time.perf_counter() - t_wall0
     metadata["truth"] = truth
+    metadata["warnings"] = list(run_warnings)
     metadata["wall_time_s"] = wall
     metadata["cell_updates"] = updates
     metadata["cell_updates_per_s"] = rate
@@ -736,8 +735,30 @@ def simulate(
     return SimulationResult(
         path=path, sidecar_path=sidecar, frames=keep, truth=truth, metadata=metadata,
         calibration=calibration, n_frames=n_frames, final_state=integ.state.copy(),
-        wall_time_s=wall, cell_updates_per_s=rate,
+        wall_time_s=wall, cell_updates_per_s=rate, warnings=tuple(run_warnings),
     )
+
+
+def _front_resolution(spec, params, *, h, dt, diffusion, pixel_size_um, oversample):
+    """The run's front speed error (`waves.models.resolution`) for the sidecar, and a
+    warning when it exceeds FRONT_SPEED_TOLERANCE, naming the refinement that fixes it."""
+    est, why = front_resolution(spec, params, spacing=h, dt=dt, diffusion=diffusion)
+    if est is None:
+        return {"estimated": False, "reason": why}, []
+    out = {"estimated": True, **est.to_dict(), "tolerance": FRONT_SPEED_TOLERANCE}
+    if abs(est.rel_error) <= FRONT_SPEED_TOLERANCE:
+        return out, []
+    n = est.refine_factor(FRONT_SPEED_TOLERANCE)
+    slow = "slow" if est.rel_error < 0 else "fast"
+    px = pixel_size_um / oversample
+    fix = oversample * n
+    return out, [
+        f"the grid under-resolves the {spec.name} front: at grid step h = {h:.4g} model units "
+        f"({px:.4g} um) its speed is about {abs(est.rel_error):.1%} {slow} (1-D estimate "
+        f"{est.speed:.4g} against {est.speed_converged:.4g} converged); a grid step of "
+        f"{h / n:.4g} ({px / n:.4g} um) brings it under {FRONT_SPEED_TOLERANCE:.0%}: "
+        f"oversample={fix} (--oversample {fix})"
+    ]
 
 
 def _clean_field_truth(clean, calibration: Calibration) -> dict:
@@ -838,6 +859,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "random period in the range and a random first firing")
     parser.add_argument("--threads", type=int,
                         help="compiled-kernel threads (default: automatic)")
+    parser.add_argument("--oversample", type=int, metavar="N",
+                        help="simulate on a grid N times finer than the pixels (default: automatic)")
+    parser.add_argument("--transient", dest="transient_min", type=float, metavar="MIN",
+                        help="ground-truth periods from crossings after MIN minutes "
+                             "(default: the first third of the run is transient)")
     parser.add_argument("--no-truth-analysis", action="store_true",
                         help="skip analysing the clean field for ground-truth cores and speed")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -887,9 +913,12 @@ def run_from_args(args: argparse.Namespace) -> int:
         observable=args.observable, dtype=args.dtype, render=args.render,
         darkfield_style=style, center_um=args.center, threads=args.threads,
         truth_analysis=not args.no_truth_analysis,
-        random_pacemakers=spontaneous,
+        random_pacemakers=spontaneous, oversample=args.oversample,
+        transient_min=args.transient_min,
         progress=not args.quiet,
     )
+    for w in res.warnings:
+        print(f"warning: {w}", file=sys.stderr)
     per = res.truth["period_min"]
     per_text = "no period measured" if per is None else f"period {per['median']:.2f} min"
     if not args.quiet:
