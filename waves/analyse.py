@@ -42,7 +42,7 @@ import scipy.ndimage
 
 from waves import __version__, preprocess
 from waves.errors import InputError, WavesError
-from waves.measure.centres import track_centres
+from waves.measure.centres import emission_intervals, track_centres
 from waves.measure.fused import pixel_measures
 from waves.measure.period import quartiles, spectral_period
 from waves.measure.speed import activation_fit_speed, activation_times
@@ -339,6 +339,7 @@ class _Maps:
     fit_speed: np.ndarray
     interval_cv: np.ndarray  # spread of the intervals between waves (std / mean)
     charges: list  # of int64 (n, 4) arrays: frame, row, col, charge
+    arrivals: list = field(default_factory=list)  # (first row, (rows, x, m) arrival times) per strip
 
 
 def _strip_rows(ny: int, nx: int, nt: int, budget_bytes: float) -> int:
@@ -397,6 +398,7 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
             maps.fit_speed[r0:r1] = np.nanmedian(sp[inner], axis=2)
             gaps = np.diff(times[inner], axis=2)
             maps.interval_cv[r0:r1] = np.nanstd(gaps, axis=2) / np.nanmean(gaps, axis=2)
+        maps.arrivals.append((r0, times[inner].copy()))  # for the centres' own waves
         del times, counts, sp
         # charges of the plaquettes whose top-left pixel is an inner pixel
         q = plaquette_charge(phase[:, inner.start : min(inner.stop + 1, a1 - a0)])
@@ -755,6 +757,15 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     return summary, out_maps, tables, stacks
 
 
+def _arrival_times(strips, shape) -> np.ndarray:
+    """(y, x, m) arrival times (frames, NaN-padded) from the per-strip arrays."""
+    m = max([t.shape[2] for _, t in strips], default=1)
+    out = np.full(shape + (m,), np.nan, np.float32)
+    for r0, t in strips:
+        out[r0 : r0 + t.shape[0], :, : t.shape[2]] = t
+    return out
+
+
 def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, spiral_cores):
     """summary['centres'], the centres table and the per-window territory
     table, in calibrated units and recorded-image coordinates."""
@@ -766,6 +777,7 @@ def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, sp
     field_px = max(float(valid.sum()), 1.0)
     area_mm2 = px_b * px_b * 1e-6
     core_by_track = {c["id"]: c for c in spiral_cores}
+    arrivals = _arrival_times(maps.arrivals, valid.shape)
 
     def window_min(w, end):
         if w < 0:
@@ -785,6 +797,17 @@ def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, sp
             warnings_module.simplefilter("ignore", RuntimeWarning)
             period = float(np.nanmedian(maps.period[0][near])) * dt_min if near.any() else float("nan")
             cv = float(np.nanmedian(maps.interval_cv[near])) if near.any() else float("nan")
+        # from the waves the centre emitted itself (not those that entrain it later)
+        own = np.zeros(0)
+        if np.isfinite(period):
+            own = emission_intervals(arrivals, r, col, radius_px=merge_px,
+                                     max_lag_frames=0.5 * period / dt_min)
+        whole = c["first_window"][i] <= 0 and c["last_window"][i] in (-1, len(windows) - 1)
+        if len(own):
+            period = float(np.median(own)) * dt_min
+            cv = float(np.std(own) / np.mean(own)) if len(own) >= 2 else float("nan")
+        elif c["kind"][i] == "target" and not whole:
+            period = cv = float("nan")  # a source for part of the movie; no own interval seen
         n = int(c["n_pixels"][i])
         area = n * area_mm2
         core = core_by_track.get(int(c["core_track"][i]))

@@ -12,6 +12,13 @@ follow the take-overs.
 A centre is a spiral when a persistent spiral core lies within twice the
 merge radius of it (the core's position is then the centre's), otherwise a
 target pacemaker.  Pixels and windows here; `waves.analyse` converts.
+
+A centre's period and firing regularity come from the waves it emitted
+itself (`emission_intervals`): a wave that arrives at the centre before it
+reaches most of a ring around it left from there.  A pacemaker that is
+entrained by a faster one stops emitting (the waves now cross it from one
+side), so its period is the one it had while it was a source, not that of
+the waves that later run over it.
 """
 
 from __future__ import annotations
@@ -23,9 +30,10 @@ import scipy.sparse
 import scipy.sparse.csgraph
 from scipy.spatial import cKDTree
 
+from waves.errors import WavesError
 from waves.measure.territories import fill_gaps, find_territories
 
-__all__ = ["CentreSet", "track_centres"]
+__all__ = ["CentreSet", "track_centres", "emission_intervals"]
 
 
 @dataclass(frozen=True)
@@ -156,3 +164,55 @@ def track_centres(
     }
     window_areas = {k: np.asarray(v, dtype=np.int64) for k, v in areas.items()}
     return CentreSet(centres=centres, labels=labels, window_areas=window_areas, window_labels=window_labels)
+
+
+def emission_intervals(
+    times: np.ndarray,
+    row: float,
+    col: float,
+    *,
+    radius_px: float,
+    max_lag_frames: float,
+    min_outward: float = 0.65,
+) -> np.ndarray:
+    """Intervals (frames) between successive waves emitted at (row, col).
+
+    times: (y, x, m) arrival times of every wave at every pixel (frames,
+    NaN-padded, `waves.measure.speed.activation_times`).  A wave arriving at
+    the centre pixel at t was emitted there when, on the ring of 0.5 to 1.5
+    `radius_px` about the centre, at least half of the pixels see an arrival
+    within `max_lag_frames` of t (about half a period; the ring's travel time
+    must be shorter) and at least `min_outward` of those arrive later than t.
+    An interval counts only between two emitted waves that follow each other
+    at the centre pixel, so the time a centre spends entrained, and the time
+    before and after, adds nothing.
+    """
+    t = np.asarray(times, dtype=np.float64)
+    if t.ndim != 3:
+        raise WavesError("arrival times must be a (y, x, m) array")
+    if not (radius_px > 0 and max_lag_frames > 0):
+        raise WavesError(f"radius and lag must be positive, got {radius_px!r} and {max_lag_frames!r}")
+    ny, nx, _ = t.shape
+    r0 = int(np.clip(round(row), 0, ny - 1))
+    c0 = int(np.clip(round(col), 0, nx - 1))
+    at = t[r0, c0]
+    at = np.sort(at[np.isfinite(at)])
+    rr, cc = np.mgrid[0:ny, 0:nx]
+    dist = np.hypot(rr - row, cc - col)
+    ring = t[(dist >= 0.5 * radius_px) & (dist <= 1.5 * radius_px)]  # (n_ring, m)
+    if len(at) < 2 or len(ring) == 0:
+        return np.zeros(0)
+    emitted = np.zeros(len(at), dtype=bool)
+    for k, tk in enumerate(at):
+        with np.errstate(invalid="ignore"):
+            lag = ring - tk
+            near = np.where(np.abs(lag) <= max_lag_frames, lag, np.nan)
+        seen = np.isfinite(near).any(axis=1)
+        if seen.mean() < 0.5:
+            continue
+        # the arrival nearest in time to the centre's, per ring pixel
+        j = np.argmin(np.where(np.isfinite(near), np.abs(near), np.inf)[seen], axis=1)
+        first = near[seen][np.arange(seen.sum()), j]
+        emitted[k] = np.mean(first > 0) >= min_outward
+    both = emitted[1:] & emitted[:-1]
+    return np.diff(at)[both]
