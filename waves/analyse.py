@@ -45,7 +45,7 @@ from waves.errors import InputError, WavesError
 from waves.measure.centres import emission_intervals, track_centres
 from waves.measure.fused import pixel_measures
 from waves.measure.period import quartiles, spectral_period
-from waves.measure.speed import activation_fit_speed, activation_times
+from waves.measure.speed import activation_fit_speed, activation_times, smoothing_speed_correction
 from waves.phase import tracking
 from waves.phase.analytic import (
     analytic_signal,
@@ -64,6 +64,7 @@ DEFAULT_PERIOD_BAND_MIN = (2.0, 20.0)
 
 HALO_PX = 3  # gradient (1) + activation-fit radius (2)
 FIT_RADIUS_PX = 2
+MAX_SMOOTHING_CORRECTION = 0.03  # larger curvature corrections of a speed are not trusted: the speed is dropped
 PIXELS_PER_WAVELENGTH = 24  # target of the automatic analysis binning
 DISCLAIMER = "research measurements; not a clinical, diagnostic or safety judgement"
 
@@ -336,6 +337,7 @@ class _Maps:
     speed: np.ndarray
     direction: np.ndarray
     coherence: np.ndarray
+    omega: np.ndarray  # phase advance per frame
     fit_speed: np.ndarray
     interval_cv: np.ndarray  # spread of the intervals between waves (std / mean)
     charges: list  # of int64 (n, 4) arrays: frame, row, col, charge
@@ -372,6 +374,7 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         speed=np.full((n, ny, nx), np.nan, np.float32),
         direction=np.full((n, ny, nx), np.nan, np.float32),
         coherence=np.full((n, ny, nx), np.nan, np.float32),
+        omega=np.full((n, ny, nx), np.nan, np.float32),
         fit_speed=np.full((ny, nx), np.nan, np.float32),
         interval_cv=np.full((ny, nx), np.nan, np.float32),
         charges=[],
@@ -391,6 +394,7 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         maps.speed[:, r0:r1] = pm.speed_px_per_frame
         maps.direction[:, r0:r1] = pm.direction_rad
         maps.coherence[:, r0:r1] = pm.coherence
+        maps.omega[:, r0:r1] = pm.omega_rad_per_frame
         times, counts = activation_times(phase)
         sp, _ = activation_fit_speed(times, counts, radius_px=FIT_RADIUS_PX, max_dt_frames=period_frames / 3.0)
         with warnings_module.catch_warnings():
@@ -409,6 +413,29 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         bar.update(1)
     bar.close()
     return maps
+
+
+def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int) -> None:
+    """Undo the curvature bias the spatial smoothing (and the binning's box
+    average) puts into the phase speeds, window by window, in place; drop
+    speeds whose correction exceeds MAX_SMOOTHING_CORRECTION (next to a
+    target's source, where the leading-order correction no longer holds)."""
+    ny, nx = maps.amplitude.shape
+    box = (1.0 - 1.0 / factor**2) / 12.0  # variance of a box of `factor` recorded pixels, in binned pixels^2
+    var_row = box + (preprocess.smoothing_variance_px2(ny, sigma_px=sigma_px) if sigma_px > 0.3 else 0.0)
+    var_col = box + (preprocess.smoothing_variance_px2(nx, sigma_px=sigma_px) if sigma_px > 0.3 else 0.0)
+    if ny < 3 or nx < 3 or not (np.any(var_row > 0) or np.any(var_col > 0)):
+        return
+    for w in range(maps.speed.shape[0]):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            k = maps.omega[w].astype(np.float64) / maps.speed[w]
+        kx = k * np.cos(maps.direction[w])
+        ky = -k * np.sin(maps.direction[w])  # direction is displayed (+y up = -row)
+        f = smoothing_speed_correction(kx, ky, var_row=np.broadcast_to(var_row, (ny,)),
+                                       var_col=np.broadcast_to(var_col, (nx,)), smooth_px=2.0 * max(sigma_px, 1.0))
+        with np.errstate(invalid="ignore"):
+            ok = np.abs(f - 1.0) <= MAX_SMOOTHING_CORRECTION
+        maps.speed[w] = np.where(ok, maps.speed[w] / np.where(ok, f, 1.0), np.nan)
 
 
 def _detect_and_track(charges, *, signal, n_frames, period_frames):
@@ -528,6 +555,7 @@ def analyse_movie(
             workers=options.workers,
             progress=progress,
         )
+        _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor)
         timings["strips_s"] = time.perf_counter() - t0
     finally:
         movie.close()
@@ -654,7 +682,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         q = quartiles(pw * dt_min)
         if q is not None:
             course.append({"t_min": float(t_mid), "period_min": q["median"], "q25": q["q25"], "q75": q["q75"]})
-        ok = speed_ok & (maps.coherence[i + 1] >= options.min_coherence) & np.isfinite(pw)
+        ok = speed_ok & (maps.coherence[i + 1] >= options.min_coherence) & np.isfinite(pw) & np.isfinite(maps.speed[i + 1])
         for g in range(nreg * nreg):
             m = ok & (region == g)
             if m.sum() < 10:
