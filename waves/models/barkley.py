@@ -5,8 +5,13 @@
 
 u is the fast, diffusing excitation variable (0 at rest, 1 excited), v the
 slow recovery variable.  Defaults a = 0.75, b = 0.02, eps = 0.02 give rigidly
-rotating spirals of period about 3.19 model time units at h = 0.25
-(REFERENCES.md, [computed]).
+rotating spirals of period 3.165 model time units at h = 0.25, dt = 0.01 once
+settled (REFERENCES.md [computed by two independent solvers]; the spiral needs
+tens of turns to settle).  The period converges at second order in h (fixed
+D dt / h^2): 3.153 at h = 0.177, 3.148 at h = 0.125, about 3.143 extrapolated,
+so the default grid's period is 0.7 % long [computed].  The front (about 0.2
+units wide) is under-resolved at h = 0.25: its solitary speed is about 7 %
+slow (4.21 against about 4.52 converged), and `waves simulate` warns.
 
 Empty pixels (occupancy 0): no reaction at all; u diffuses through them
 passively (a non-excitable gap that loads passing fronts), v stays frozen.

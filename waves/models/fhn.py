@@ -5,7 +5,11 @@
 
 u is the fast, diffusing variable, v the slow recovery variable.  Defaults
 eps = 0.3, beta = 0.7, gamma = 0.5 give spirals of period about 11.2 model
-time units (11.225 at h = 0.5; REFERENCES.md, [computed]).
+time units: 11.233 at h = 0.5, dt = 0.05 once settled, 11.187 at h = 0.354,
+11.166 at h = 0.25, about 11.146 extrapolated (second order in h at fixed
+D dt / h^2), so the default grid's period is 0.8 % long [computed; REFERENCES.md
+gives 11.225 at h = 0.5, parameters from memory].  The solitary front speed at
+h = 0.5 is about 5.5 % slow, and `waves simulate` warns.
 
 Empty pixels (occupancy 0): no reaction; u diffuses through them passively
 (a non-excitable gap), v stays frozen.  Fractional occupancy scales both
