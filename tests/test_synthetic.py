@@ -370,6 +370,68 @@ def test_drift_end_before_movie_end_keeps_final_period():
 # pulse shape
 
 
+def test_jittered_target_fires_at_its_generated_times():
+    # the phase passes 0 upwards at the source exactly at the firing times the
+    # truth lists, and at distance r exactly r / c later (the test's own
+    # zero-crossing arithmetic); the intervals have the asked-for spread
+    period_min, dt_s, speed = 6.0, 6.0, 300.0
+    nt = 1200  # 120 min, 20 periods
+    src = TargetSource(160.0, 160.0, period_min, jitter_min=0.6, jitter_seed=3)
+    phase, truth = phase_field((nt, 33, 33), pixel_size_um=10.0, frame_interval_s=dt_s,
+                               speed_um_per_min=speed, sources=[src])
+    fire = truth.firing_times_min(0)
+    t_last = (nt - 1) * dt_s / 60.0
+    t = np.arange(nt) * dt_s / 60.0
+    r_um = math.hypot(27 * 10.0 - 160.0, 5 * 10.0 - 160.0)
+    for (row, col), lag in (((16, 16), 0.0), ((5, 27), r_um / speed)):
+        # the phase itself: 2 pi n at the n-th firing, linear in between (float32: 1e-5 rad)
+        cycles = np.interp(t - lag, fire, np.arange(len(fire)))
+        cycles = np.where(t - lag < 0.0, (t - lag) / period_min, cycles)
+        np.testing.assert_allclose(_wrap(phase[:, row, col] - 2 * np.pi * cycles), 0.0, atol=1e-4)
+        # its upward zero crossings; interpolating across the kink at a firing
+        # time errs by at most a frame step times the slope change (achieved
+        # 0.016 min with 0.1 min steps)
+        crossings = _upward_zero_crossings(phase[:, row, col], dt_s / 60.0)
+        expected = fire + lag
+        np.testing.assert_allclose(crossings, expected[(expected > 0.0) & (expected < t_last)], atol=0.04)
+    gaps = np.diff(fire)
+    # 22 deviates of spread 0.6 min: the interval spread is about sqrt(2) * 0.6
+    assert 0.5 < np.std(gaps) < 1.3 and abs(np.mean(gaps) - period_min) < 0.3
+    # the truth's period time course is the interval holding each frame time
+    course = np.array(truth.sources[0].period_timecourse)
+    k = np.searchsorted(fire, course[:, 0], side="right") - 1
+    np.testing.assert_allclose(course[:, 1], gaps[k])
+
+
+@pytest.mark.parametrize("orbit", [True, False])
+def test_moving_core_sits_on_its_path(orbit):
+    # the winding (the test's own loop sum) of a small loop about the path's
+    # position is the charge in every frame, and 0 about the start position
+    # once the core has moved away
+    px, dt_s = 10.0, 30.0
+    src = (SpiralSource(300.0, 300.0, 6.0, charge=-1, orbit_radius_um=80.0, orbit_period_min=20.0)
+           if orbit else SpiralSource(200.0, 250.0, 6.0, charge=1, velocity_um_per_min=(6.0, 3.0)))
+    nt = 40
+    phase, truth = phase_field((nt, 61, 61), pixel_size_um=px, frame_interval_s=dt_s,
+                               speed_um_per_min=200.0, sources=[src])
+    t = np.arange(nt) * dt_s / 60.0
+    x, y = truth.core_at(0, t)
+    if orbit:  # counterclockwise as displayed: up the screen (y decreasing) after t = 0
+        np.testing.assert_allclose(np.hypot(x - 300.0, y - 300.0), 80.0)
+        assert y[1] < y[0]
+    else:
+        np.testing.assert_allclose(x, 200.0 + 6.0 * t)
+        np.testing.assert_allclose(y, 250.0 + 3.0 * t)
+    for f in range(nt):
+        r0, c0 = int(round(y[f] / px)), int(round(x[f] / px))
+        assert round(_winding(phase[f], _loop_ccw_displayed(r0, c0, 2))) == src.charge
+    moved = np.hypot(x - x[0], y - y[0]) > 60.0
+    assert moved.any()
+    r0, c0 = int(round(y[0] / px)), int(round(x[0] / px))
+    for f in np.flatnonzero(moved):
+        assert round(_winding(phase[f], _loop_ccw_displayed(r0, c0, 2))) == 0
+
+
 @pytest.mark.parametrize("width", [0.08, 0.2, 0.5, 0.7, 0.9])
 def test_pulse_width_is_fraction_of_time_excited(width):
     period_min, dt_s = 5.0, 3.0
@@ -509,6 +571,14 @@ def test_bad_inputs_raise_waves_errors_with_hints():
         PlanarSource(float("inf"), 6.0)
     with pytest.raises(WavesError, match="drift_end_min"):
         phase_field((1, 5, 5), **{**ok, "sources": [TargetSource(0, 0, 6, period_end_min=5)]})
+    with pytest.raises(WavesError, match="jitter_min"):
+        TargetSource(0.0, 0.0, 6.0, jitter_min=-1.0)
+    with pytest.raises(WavesError, match="period_end_min"):
+        TargetSource(0.0, 0.0, 6.0, jitter_min=0.5, period_end_min=5.0)
+    with pytest.raises(WavesError, match="orbit_period_min"):
+        SpiralSource(0.0, 0.0, 6.0, orbit_radius_um=50.0)
+    with pytest.raises(WavesError, match="velocity_um_per_min"):
+        SpiralSource(0.0, 0.0, 6.0, velocity_um_per_min=3.0)
 
 
 # ---------------------------------------------------------------------------

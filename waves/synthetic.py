@@ -57,22 +57,43 @@ left on the screen, meets the boundary).  Such boundary defects are not in
 `WaveField.cores`.  To avoid them, let each spiral's territory reach the edge
 of the field along its leftward ray, or pair spirals of opposite charge.
 
+Two kinds of source have truth beyond a period law: a target whose firing
+times are jittered with a known spread (`TargetSource.jitter_min`; the truth's
+`firing_times_min`), and a spiral whose core moves on a circle or a line
+(`SpiralSource.orbit_radius_um`, `velocity_um_per_min`; the truth's `core_at`).
+The sources and their period laws live in `waves.synthetic_sources`.
+
 Returned phases are float32 in (-pi, pi].  The competition is evaluated in
 frame blocks by a compiled kernel (`_competition_kernel`) beside a readable
 numpy twin (`_Evaluator.block_numpy`); the two are tested against each other.
+Moving cores and jittered firing times are evaluated by the numpy twin only.
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Iterator, Sequence
-from dataclasses import KW_ONLY, dataclass, field
+from dataclasses import dataclass, field
 
 import numpy as np
 from numba import njit
 
 from waves.errors import WavesError
 from waves.render import DarkfieldRenderer, DarkfieldStyle
+from waves.synthetic_sources import (
+    PlanarSource,
+    Source,
+    SpiralSource,
+    TargetSource,
+    _finite,
+    _FiringLaw,
+    _law_of,
+    _positive,
+    core_position,
+    firing_times_min,
+    moves,
+    rotation_of_charge,
+)
 from waves.units import Calibration
 
 __all__ = [
@@ -84,6 +105,8 @@ __all__ = [
     "WaveField",
     "SyntheticMovie",
     "rotation_of_charge",
+    "core_position",
+    "firing_times_min",
     "pulse_exponent",
     "excitation",
     "phase_field",
@@ -96,185 +119,6 @@ _TWO_PI = 2.0 * math.pi
 # size are 16 MiB each
 _BLOCK_ELEMENTS = 1 << 21
 _DEFAULT_STYLE = DarkfieldStyle()
-
-
-# ----------------------------------------------------------------------------
-# sources
-
-
-def _finite(name: str, value: object) -> float:
-    try:
-        out = float(value)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        raise WavesError(f"{name} must be a number, got {value!r}") from None
-    if not math.isfinite(out):
-        raise WavesError(f"{name} must be finite, got {value!r}")
-    return out
-
-
-def _positive(name: str, value: object, hint: str) -> float:
-    out = _finite(name, value)
-    if out <= 0.0:
-        raise WavesError(f"{name} must be positive, got {value!r} ({hint})")
-    return out
-
-
-def _check_period_fields(kind: str, src: Source) -> None:
-    """Validate and normalise the period options shared by all sources."""
-    values = {
-        "period_min": _positive(f"{kind}.period_min", src.period_min, "minutes, e.g. 6.5"),
-        "phase0": _finite(f"{kind}.phase0", src.phase0),
-    }
-    if src.period_end_min is not None:
-        values["period_end_min"] = _positive(
-            f"{kind}.period_end_min", src.period_end_min, "minutes, or None for a constant period"
-        )
-    if src.drift_end_min is not None:
-        values["drift_end_min"] = _positive(
-            f"{kind}.drift_end_min", src.drift_end_min,
-            "minutes after the first frame, or None for the last frame",
-        )
-    for name, value in values.items():
-        object.__setattr__(src, name, value)
-
-
-@dataclass(frozen=True)
-class TargetSource:
-    """A pacemaker at (x_um, y_um) emitting concentric rings every `period_min`.
-
-    phase0          phase offset (radians).
-    period_end_min  if given, the period drifts linearly from `period_min` at
-                    t = 0 to this value at `drift_end_min`.
-    drift_end_min   end of the drift, minutes after the first frame
-                    (None: the last frame).
-    """
-
-    x_um: float
-    y_um: float
-    period_min: float
-    _: KW_ONLY
-    phase0: float = 0.0
-    period_end_min: float | None = None
-    drift_end_min: float | None = None
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "x_um", _finite("TargetSource.x_um", self.x_um))
-        object.__setattr__(self, "y_um", _finite("TargetSource.y_um", self.y_um))
-        _check_period_fields("TargetSource", self)
-
-
-@dataclass(frozen=True)
-class SpiralSource:
-    """An Archimedean spiral rotating about a core at (x_um, y_um).
-
-    charge  +1 (rotates clockwise as displayed) or -1 (counterclockwise);
-            the phase winds by 2 pi * charge counterclockwise as displayed.
-    Other options as for `TargetSource`.
-    """
-
-    x_um: float
-    y_um: float
-    period_min: float
-    _: KW_ONLY
-    charge: int = 1
-    phase0: float = 0.0
-    period_end_min: float | None = None
-    drift_end_min: float | None = None
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "x_um", _finite("SpiralSource.x_um", self.x_um))
-        object.__setattr__(self, "y_um", _finite("SpiralSource.y_um", self.y_um))
-        if isinstance(self.charge, bool) or self.charge not in (1, -1):
-            raise WavesError(
-                f"SpiralSource.charge must be +1 (clockwise as displayed) or -1 "
-                f"(counterclockwise as displayed), got {self.charge!r}"
-            )
-        object.__setattr__(self, "charge", int(self.charge))
-        _check_period_fields("SpiralSource", self)
-
-
-@dataclass(frozen=True)
-class PlanarSource:
-    """A plane wave travelling in `direction_deg` (degrees counterclockwise
-    from +x as displayed: 0 rightwards, 90 upwards on the screen).  Its phase
-    is `phase0` on the line through pixel (0, 0) perpendicular to the travel
-    direction at t = 0.  Other options as for `TargetSource`."""
-
-    direction_deg: float
-    period_min: float
-    _: KW_ONLY
-    phase0: float = 0.0
-    period_end_min: float | None = None
-    drift_end_min: float | None = None
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "direction_deg", _finite("PlanarSource.direction_deg", self.direction_deg))
-        _check_period_fields("PlanarSource", self)
-
-
-Source = TargetSource | SpiralSource | PlanarSource
-
-
-def rotation_of_charge(charge: int) -> str:
-    """Rotation sense, as displayed, of a spiral of topological charge `charge`.
-
-    Derivation: phase = omega t - k r + q theta_disp + phi0 with omega > 0 and
-    theta_disp counted counterclockwise as displayed.  Following a line of
-    constant phase at fixed r, d phase = 0 = omega dt + q d theta_disp, so
-    d theta_disp / dt = -omega / q: for q = +1 the arms turn towards smaller
-    theta_disp, i.e. CLOCKWISE as displayed; for q = -1 COUNTERCLOCKWISE.
-    """
-    if isinstance(charge, bool) or charge not in (1, -1):
-        raise WavesError(f"a spiral's charge is +1 or -1, got {charge!r}")
-    return "clockwise" if charge == 1 else "counterclockwise"
-
-
-# ----------------------------------------------------------------------------
-# period law: T(t) and Phi(t) = 2 pi int_0^t dt'/T(t'), in closed form
-
-
-@dataclass(frozen=True)
-class _PeriodLaw:
-    """T = t0 for t <= 0, linear to t1 at t = d, t1 after (minutes)."""
-
-    t0: float
-    t1: float
-    d: float
-
-    @property
-    def slope(self) -> float:
-        return (self.t1 - self.t0) / self.d if self.t1 != self.t0 else 0.0
-
-    def period(self, t: np.ndarray | float) -> np.ndarray:
-        t = np.asarray(t, dtype=np.float64)
-        if self.slope == 0.0:
-            return np.full_like(t, self.t0)
-        return np.where(t <= 0.0, self.t0, np.where(t >= self.d, self.t1, self.t0 + self.slope * t))
-
-    def phase(self, t: np.ndarray) -> np.ndarray:
-        """Phi(t) in radians, Phi(0) = 0 (float64)."""
-        t = np.asarray(t, dtype=np.float64)
-        if self.slope == 0.0:
-            return t * (_TWO_PI / self.t0)
-        a = self.slope
-        tm = np.clip(t, 0.0, self.d)
-        # int_0^tm dt/(t0 + a t) = log1p(a tm / t0) / a  (exact)
-        out = np.log1p(tm * (a / self.t0)) * (_TWO_PI / a)
-        out += np.minimum(t, 0.0) * (_TWO_PI / self.t0)
-        out += np.maximum(t - self.d, 0.0) * (_TWO_PI / self.t1)
-        return out
-
-
-def _law_of(src: Source, last_frame_min: float) -> _PeriodLaw:
-    if src.period_end_min is None or src.period_end_min == src.period_min:
-        return _PeriodLaw(src.period_min, src.period_min, 1.0)
-    d = src.drift_end_min if src.drift_end_min is not None else last_frame_min
-    if d <= 0.0:
-        raise WavesError(
-            "a drifting period needs a drift duration: the movie has a single frame, so give "
-            "drift_end_min (minutes) on the source"
-        )
-    return _PeriodLaw(src.period_min, src.period_end_min, d)
 
 
 # ----------------------------------------------------------------------------
@@ -409,6 +253,17 @@ class WaveField:
     @property
     def _last_frame_min(self) -> float:
         return (self.shape_tyx[0] - 1) * self.frame_interval_s / 60.0
+
+    def core_at(self, source_index: int, t_min: np.ndarray | float) -> tuple[np.ndarray, np.ndarray]:
+        """(x_um, y_um) of source `source_index`'s core at times `t_min` (its
+        path when the core moves; `Core` holds the position at t = 0 of a
+        drifting core and the orbit's centre of a meandering one)."""
+        return core_position(self._inputs[source_index], t_min)
+
+    def firing_times_min(self, source_index: int) -> np.ndarray:
+        """Times (min, from 0 to past the last frame) at which source
+        `source_index` fires: phase 0 at the source, the excitation's peak."""
+        return firing_times_min(self._inputs[source_index], self._last_frame_min)
 
     def labels_at(self, index: int) -> np.ndarray:
         """Winning-source map (y, x) int16 of frame `index`, recomputed exactly."""
@@ -550,6 +405,10 @@ class _Evaluator:
         self.sources = sources
         y = (np.arange(ny, dtype=np.float64) * pixel_size_um)[:, None]
         x = (np.arange(nx, dtype=np.float64) * pixel_size_um)[None, :]
+        self.y, self.x, self.speed = y, x, speed_um_per_min
+        # moving cores and firing-time laws have no compiled path: numpy only
+        self.numpy_only = any(moves(s) or isinstance(law, _FiringLaw)
+                              for s, law in zip(sources, self.laws, strict=True))
         # static per-source parts: travel delay (min) and, for spirals, the angular term (rad)
         ns = len(sources)
         n_spirals = sum(isinstance(s, SpiralSource) for s in sources)
@@ -580,7 +439,10 @@ class _Evaluator:
 
     def block(self, start: int, stop: int) -> tuple[np.ndarray, np.ndarray]:
         """Wrapped phase (float32, (-pi, pi]) and winner labels (int16) of
-        frames start..stop-1 (compiled kernel)."""
+        frames start..stop-1 (compiled kernel; the numpy twin when a core
+        moves or a source has jittered firing times)."""
+        if self.numpy_only:
+            return self.block_numpy(start, stop)
         shape = (stop - start,) + self.shape_tyx[1:]
         phase = np.empty(shape, dtype=np.float32)
         label = np.empty(shape, dtype=np.int16)
@@ -608,6 +470,13 @@ class _Evaluator:
 
     def _unwrapped(self, i: int, t: np.ndarray) -> np.ndarray:
         """Unwrapped phase (float64) of source i at frame times t (t, 1, 1)."""
+        src = self.sources[i]
+        if moves(src):
+            # the spiral about where the core is at each frame time (exact path)
+            xc, yc = core_position(src, t)
+            dy, dx = self.y[None] - yc, self.x[None] - xc
+            return (self.laws[i].phase(t - np.hypot(dx, dy) / self.speed)
+                    + src.charge * np.arctan2(-dy, dx) + src.phase0)
         u = self.laws[i].phase(t - self.delay_min[i][None])
         k = self.angular_index[i]
         if k >= 0:
