@@ -91,7 +91,10 @@ def test_cli_writes_calibrated_movie_and_sidecar(tmp_path, capsys):
     assert side["cell_updates_per_s"] > 0 and side["wall_time_s"] > 0
     assert side["calibration"]["pixel_size_um"] == 40.0
     assert "period_min" in side["truth"] and len(side["truth"]["probes"]) == 16
-    assert capsys.readouterr().err == ""  # --quiet
+    # --quiet: no progress bar and no summary; only warnings reach stderr (h = 0.2
+    # under-resolves the Barkley front, see the resolution tests below)
+    err = capsys.readouterr().err.splitlines()
+    assert err == [f"warning: {w}" for w in side["warnings"]]
 
 
 def test_params_file_and_set_precedence(tmp_path):
@@ -294,3 +297,48 @@ def test_model_specific_initial_state_hook_and_default_pacing(monkeypatch):
     (pm,) = res.metadata["pacemakers"]
     assert pm["period_min"] == pytest.approx(10 * 130.0 / 60.0)
     assert (pm["y_um"], pm["x_um"]) == pytest.approx((11.5 * 50.0, 11.5 * 50.0))
+
+
+# ----------------------------------------------------------------- grid resolution
+
+
+def test_under_resolved_front_warns_and_a_resolved_run_does_not(tmp_path, capsys):
+    # Barkley at h = 0.25: front about 0.2 units wide, its speed about 6-7 % slow
+    # (1-D estimate at h and h/2, Richardson; checked against the exact Nagumo speed and
+    # finer grids in test_models_convergence.py).  At oversample 2 (h = 0.125) the
+    # error is about a quarter, 1.8 % < 2 %
+    coarse = tmp_path / "coarse.tif"
+    assert main(["simulate", "barkley", "--out", str(coarse), "--size", "32", "--minutes", "2",
+                 "--quiet", "--no-truth-analysis"]) == 0
+    side = json.loads(coarse.with_suffix(".json").read_text())
+    res = side["numerics"]["front_resolution"]
+    assert res["estimated"] and res["spacing_model"] == pytest.approx(0.25)
+    assert -0.08 < res["speed_rel_error"] < -0.05
+    assert len(side["warnings"]) == 1
+    w = side["warnings"][0]
+    assert "under-resolves the barkley front" in w
+    assert f"{abs(res['speed_rel_error']):.1%} slow" in w
+    assert "0.125 (25 um)" in w and "--oversample 2" in w
+    assert capsys.readouterr().err.splitlines() == [f"warning: {w}"]
+
+    fine = tmp_path / "fine.tif"
+    assert main(["simulate", "barkley", "--out", str(fine), "--size", "32", "--minutes", "2",
+                 "--quiet", "--no-truth-analysis", "--oversample", "2"]) == 0
+    side = json.loads(fine.with_suffix(".json").read_text())
+    res = side["numerics"]["front_resolution"]
+    assert res["spacing_model"] == pytest.approx(0.125)
+    assert -0.02 < res["speed_rel_error"] < -0.01
+    assert side["warnings"] == []
+    assert capsys.readouterr().err == ""
+    # the Python API carries the same warnings
+    api = simulate("barkley", out=None, size=16, minutes=1, truth_analysis=False)
+    assert len(api.warnings) == 1 and "under-resolves" in api.warnings[0]
+
+
+def test_transient_sets_where_the_ground_truth_period_starts():
+    res = simulate("barkley", out=None, size=32, minutes=6, truth_analysis=False,
+                   transient_min=4.5)
+    assert res.truth["transient_min"] == pytest.approx(4.5)
+    assert res.truth["transient_model"] == pytest.approx(4.5 * 60 / 130)
+    with pytest.raises(WavesError, match="transient_min"):
+        simulate("barkley", out=None, size=16, minutes=2, transient_min=3.0)
