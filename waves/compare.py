@@ -97,6 +97,8 @@ DEFAULT_TOLERANCE = 0.10
 # scale of the robust loss: relative speed scatter of good points (common practice, no source)
 DEFAULT_ROBUST_SCALE = 0.02
 _UNCONSTRAINED_FACTOR = 2.0
+# a model prediction counts as converged when its grid extrapolations agree to 0.5 % (issue 11)
+CONVERGED_REL = 0.005
 
 
 # --------------------------------------------------------------------------- measured data
@@ -704,6 +706,19 @@ class _Model:
         self.s_l_um = s_l_um  # um per model length unit
 
 
+def _convergence_record(curves) -> dict:
+    """Grids and convergence estimate of the model curves (the worst of several)."""
+    conv = [c.convergence_rel for c in curves]
+    conv_t = [c.shortest_period_convergence_rel for c in curves]
+    return {
+        "spacings_model": [list(c.spacings) for c in curves] if len(curves) > 1 else list(curves[0].spacings),
+        "convergence_rel": None if any(v is None for v in conv) else float(max(conv)),
+        "shortest_period_convergence_rel": None if any(v is None for v in conv_t) else float(max(conv_t)),
+        "converged": None if any(c.converged is None for c in curves) else all(c.converged for c in curves),
+        "extrapolated": all(len(c.spacings) > 1 for c in curves),
+    }
+
+
 def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir, use_cache, notes, clusters=None):
     from waves.models.relay import LENGTH_UNIT_UM
 
@@ -743,7 +758,8 @@ def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir,
              "shortest_period_min": T_min}
     near = curves[int(np.argmin([abs(k - ke) for k in ks]))][1]
     numerics = {"spacing_model": near.spacing, "dt_model": near.dt, "diffusion0_model": near.diffusion,
-                "diffusion0_um2_per_min": D0, "ke_grid_per_min": ks, "cache_keys": [c.key for _, c in curves]}
+                "diffusion0_um2_per_min": D0, "ke_grid_per_min": ks, "cache_keys": [c.key for _, c in curves],
+                **_convergence_record([c for _, c in curves])}
     model_params = {**near.params, "ke_per_min": ke, "diffusion": D / LENGTH_UNIT_UM ** 2}
     spiral_params = {**rest, "ke_per_min": round(ke, 1)}
     return fit, _Model(speed, curve, 1.0, s_l), numerics, model_params, spiral_params
@@ -767,7 +783,7 @@ def _fit_scaled_model(spec, P, V, params, *, spacing, robust_scale, cache_dir, u
              "solitary_speed_um_per_min": c.solitary_speed * s_l / s_t,
              "shortest_period_min": c.shortest_period * s_t}
     numerics = {"spacing_model": c.spacing, "dt_model": c.dt, "diffusion_model": c.diffusion,
-                "cache_keys": [c.key], "curve_notes": list(c.notes)}
+                "cache_keys": [c.key], "curve_notes": list(c.notes), **_convergence_record([c])}
     return fit, _Model(speed, curve, s_t, s_l), numerics, dict(c.params), given
 
 
@@ -830,6 +846,17 @@ def compare_analysis(
          "relative_difference": None, "reproduced": bool(frac == 1.0),
          "note": f"{frac:.0%} of the points lie at or above the model's shortest period"},
     ]
+    conv = numerics.get("convergence_rel")
+    grids = numerics.get("spacings_model") or []
+    n_grids = len(grids[0]) if grids and isinstance(grids[0], list) else len(grids)
+    checks.append({
+        "quantity": "model curve converged in the grid (speeds; last two extrapolations)", "folder": None,
+        "measured": None, "model": None, "relative_difference": conv,
+        "reproduced": None if conv is None else bool(conv <= CONVERGED_REL),
+        "note": (f"Richardson-extrapolated over {n_grids} grids from h = {numerics['spacing_model']:g}"
+                 if numerics.get("extrapolated") else "one grid, not extrapolated (converge=False)")
+        + f"; counted as converged within {CONVERGED_REL:.1%}",
+    })
     pred = None
     if spiral:
         pred = spiral_prediction(spec.name, params=spiral_params, spacing=spiral_spacing,
@@ -864,6 +891,8 @@ def compare_analysis(
             "period_model": pred.period, "wavelength_model": pred.wavelength, "speed_model": pred.speed,
             "n_cores": pred.n_cores, "size_model": pred.size, "duration_model": pred.duration,
             "spacing_model": pred.spacing, "params": pred.params, "notes": list(pred.notes),
+            "spacings_model": list(pred.spacings), "periods_model": list(pred.periods),
+            "convergence_rel": pred.convergence_rel,
             "method": "2-D simulation from a broken wave; period from threshold crossings, wavelength "
                       "and speed from the analyser on the clean field",
         }
@@ -960,6 +989,8 @@ def write_comparison(comp: Comparison, out_dir=None) -> dict:
         "residual_log": f.residual_log,
         "weight": f.weight,
         "in_model_range": np.where(f.in_model_range, "yes", "no"),
+        "model_convergence_rel": np.full(m.period_min.size, np.nan if comp.numerics.get("convergence_rel") is None
+                                         else float(comp.numerics["convergence_rel"])),
     }
     paths = {"csv": write_table_csv(out / f"{stem}.csv", table)}
     fig = comparison_figure(comp)
@@ -987,7 +1018,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--out", metavar="DIR", help="folder for the outputs (default: the first ANALYSIS_DIR)")
     parser.add_argument("--t-range", type=float, nargs=2, metavar=("LO", "HI"),
                         help="use only dispersion points with window centre between LO and HI minutes")
-    parser.add_argument("--spacing", type=float, metavar="H", help="grid step of the model runs (model units)")
+    parser.add_argument("--spacing", type=float, metavar="H",
+                        help="coarsest grid step of the model runs (model units); finer grids h/sqrt(2), ... "
+                             "are added until the Richardson-extrapolated prediction converges")
     parser.add_argument("--tolerance", type=float, default=DEFAULT_TOLERANCE,
                         help="relative difference counted as reproduced (default 0.1)")
     parser.add_argument("--robust-scale", type=float, default=DEFAULT_ROBUST_SCALE, metavar="R",
@@ -1018,6 +1051,10 @@ def run_from_args(args: argparse.Namespace) -> int:
         lines = [f"model           {comp.model}"]
         lines += [f"fit             {_fmt_scale(comp.fit, n)}" for n in comp.fit.values]
         lines.append(f"residuals       weighted rms {comp.fit.rms_relative:.1%} over {comp.fit.n_points} points")
+        conv = comp.numerics.get("convergence_rel")
+        if conv is not None:
+            lines.append(f"model numerics  from h = {comp.numerics['spacing_model']:g}, grid extrapolations "
+                         f"agree to {conv:.2%}")
         for ch in comp.checks:
             verdict = {True: "reproduced", False: "NOT reproduced", None: "not tested"}[ch["reproduced"]]
             where = f" [{pathlib.Path(ch['folder']).name}]" if ch.get("folder") and len(comp.measured.folders) > 1 else ""

@@ -30,24 +30,31 @@ solitary speed, so the curve levels off at the solitary-wave speed.
 Rings whose crossing intervals spread by more than 2 % (alternans near the
 shortest period, or a train still settling) are kept but marked unsteady.
 
-Results are cached per parameter set and numerics as JSON (key: SHA-256 of
-the model, every parameter, spacing, dt, D and the algorithm's settings) in
-`default_cache_dir()`: $WAVES_CACHE_DIR, else $XDG_CACHE_HOME/waves, else
-~/.cache/waves.  Files are written atomically; a damaged cache file is
-recomputed.
+Converged by default.  The explicit scheme's error is O(dt) + O(h^2); with
+dt kept proportional to h^2 it is K h^2, so the solitary speed and the curve
+are computed on grids h, h / sqrt(2), h / 2, ... (`refined_numerics`; dt
+scaled by the square of the spacing ratio) and Richardson-extrapolated from
+each pair of successive grids, X = 2 X(h / sqrt(2)) - X(h) (`richardson`),
+until two successive extrapolations agree to `rtol` (default 0.3 %) or
+`max_levels` grids are used; `convergence_rel` is their relative
+difference (an estimate of the error of the result).  Curves of two grids
+are combined at the finer grid's ring periods that both carry; the shortest
+period is the larger of the two grids' (its grid dependence is below the
+bisection step, which limits its `shortest_period_convergence_rel`; that is
+reported, not iterated on).  The convergence of the
+curve is judged on trains at least 5 % above the shortest period and on the
+solitary speed.  `converge=False` gives the plain one-grid result.
 
-Spiral prediction (`spiral_prediction`): a 2-D simulation started from a
-broken wave (`waves.simulate.simulate`, initial='spiral'); the rotation period
-is the simulator's ground truth (threshold crossings at probe points after
-the first third of the run) and the wavelength and speed are what the
-analyser measures on the clean field (truth['analysis']); the wavelength the
-1-D dispersion relation gives at that period, c(T) T, is reported beside it.
+Results are cached per parameter set and numerics as JSON
+(`waves.dispersion_cache`; key: SHA-256 of the model, every parameter,
+spacing, dt, D and the algorithm's settings, the convergence settings
+included) in `default_cache_dir()`.
+
+Spiral prediction: `waves.spirals.spiral_prediction` (also reachable here).
 """
 
 from __future__ import annotations
 
-import hashlib
-import json
 import math
 import os
 import pathlib
@@ -55,6 +62,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from waves import dispersion_cache as _cache
+from waves.dispersion_cache import default_cache_dir
 from waves.errors import SimulationError, WavesError
 from waves.models import get_model
 from waves.models.base import NUMERIC_NAMES, Integrator, stable_dt_limit
@@ -74,9 +83,16 @@ __all__ = [
     "default_cache_dir",
     "cache_key",
     "ALGORITHM_VERSION",
+    "SolitarySpeed",
+    "converged_solitary_speed",
+    "refined_numerics",
+    "richardson",
+    "REFINE_RATIO",
+    "DEFAULT_RTOL",
+    "MAX_LEVELS",
 ]
 
-ALGORITHM_VERSION = 1  # bump when the ring procedure changes: old cache entries are ignored
+ALGORITHM_VERSION = 2  # bump when the ring procedure changes: old cache entries are ignored
 
 # default longest ring (model length units): a few solitary-pulse wakes; doubled
 # automatically until the ring speed equals the solitary speed (within _PLATEAU_TOL)
@@ -88,12 +104,24 @@ _STEADY_SPREAD = 0.02
 _N_PROBES = 4
 # 2-D spiral prediction per model: (field side, duration, frame interval), model units; the
 # field holds a few wavelengths, the run 15-20 rotations, a rotation about 20 frames
-_SPIRAL_DEFAULTS = {"barkley": (40.0, 60.0, 0.15), "fhn": (80.0, 180.0, 0.5),
-                    "relay": (80.0, 110.0, 0.4)}
-_SPIRAL_FALLBACK = (80.0, 150.0, 0.5)
+REFINE_RATIO = math.sqrt(2.0)  # spacing ratio of successive grids of a converged prediction
+DEFAULT_RTOL = 0.003  # successive Richardson estimates agreeing this well count as converged
+MAX_LEVELS = 5  # grids h ... h / 4
+# coarsest grid of a converged curve when no spacing is given (default: the model's own);
+# relay: 40 um, whose extrapolation agrees with finer grids to 0.1 % at a quarter of the cost
+_CONVERGE_START = {"relay": 0.4}
+_CONVERGE_ABOVE = 1.05  # curve convergence judged on trains at least this far above T_min
 
 
 # --------------------------------------------------------------------------- numerics
+
+
+def __getattr__(name):  # the spiral prediction lives in waves.spirals (no import cycle)
+    if name in ("spiral_prediction", "SpiralPrediction"):
+        from waves import spirals
+
+        return getattr(spirals, name)
+    raise AttributeError(f"module 'waves.dispersion' has no attribute {name!r}")
 
 
 @dataclass(frozen=True)
@@ -172,8 +200,9 @@ def _cable(num: Numerics, length: float) -> _Cable:
     prev = it.state[0, 0, probes_j].copy()
     t_prev = 0.0
     chunk = max(1, int(round(0.25 / num.dt)))
-    # a stalled or very slow wave: give up after 5e8 cell updates (a few seconds)
-    max_steps = int(5e8 / nx) + chunk
+    # a stalled or very slow wave: give up after 5e8 cell updates at the model's grid (a few
+    # seconds), as many model time units on finer grids
+    max_steps = int(5e8 / nx * max(1.0, spec.spacing / num.spacing) ** 3) + chunk
     steps = 0
     while np.isnan(arrival[-1]):
         trace = it.advance(chunk)
@@ -202,14 +231,93 @@ def _cable(num: Numerics, length: float) -> _Cable:
 
 
 def solitary_speed(model: str, *, params: dict | None = None, spacing: float | None = None,
-                   dt: float | None = None, length: float | None = None) -> float:
+                   dt: float | None = None, length: float | None = None, converge: bool = False) -> float:
     """Speed (model length units per model time unit) of a solitary wave on a
     no-flux cable of `length` model units (default: twice the model's default
-    ring length); for the bistable Nagumo medium, the front speed."""
+    ring length); for the bistable Nagumo medium, the front speed.
+
+    converge=False: the speed on grid `spacing` itself (what a simulation on
+    that grid runs at); converge=True: extrapolated to h -> 0 from that grid
+    and finer ones (`converged_solitary_speed`, which also reports the
+    grids and the convergence estimate)."""
+    if converge:
+        return converged_solitary_speed(model, params=params, spacing=spacing, dt=dt, length=length).speed
     num = resolve_numerics(model, params, spacing=spacing, dt=dt)
     if length is None:
         length = 2.0 * _DEFAULT_RING_LENGTH.get(num.model, _FALLBACK_RING_LENGTH)
     return _cable(num, float(length)).speed
+
+
+def refined_numerics(num: Numerics, levels: int) -> list[Numerics]:
+    """Grids h, h / sqrt(2), ... (`levels` of them) with dt scaled by the square of
+    the spacing ratio, so that the scheme's O(dt) + O(h^2) error scales as h^2."""
+    return [Numerics(num.model, dict(num.params), num.spacing / REFINE_RATIO ** k,
+                     num.dt / REFINE_RATIO ** (2 * k), num.diffusion) for k in range(int(levels))]
+
+
+def richardson(coarse, fine, ratio: float = REFINE_RATIO, order: int = 2):
+    """Extrapolation to h -> 0 of a quantity with error K h^order from grids h and h / ratio."""
+    r = ratio ** order
+    return (r * np.asarray(fine, np.float64) - np.asarray(coarse, np.float64)) / (r - 1.0) \
+        if isinstance(fine, np.ndarray) else (r * float(fine) - float(coarse)) / (r - 1.0)
+
+
+@dataclass(frozen=True)
+class SolitarySpeed:
+    """A converged solitary-wave speed, model units.
+
+    speed: the last Richardson extrapolation; spacings, dts, speeds: grid,
+    time step and speed of each cable; extrapolated: one Richardson value per
+    pair of successive grids; convergence_rel: relative difference of the
+    last two extrapolations (with two grids: of the extrapolation and the
+    finest speed); converged: convergence_rel <= rtol.
+    """
+
+    speed: float
+    spacings: tuple[float, ...]
+    dts: tuple[float, ...]
+    speeds: tuple[float, ...]
+    extrapolated: tuple[float, ...]
+    convergence_rel: float
+    converged: bool
+
+
+def _check_convergence_options(rtol, max_levels) -> None:
+    if not (isinstance(rtol, (int, float)) and math.isfinite(rtol) and 0 < rtol < 0.5):
+        raise WavesError(f"rtol must be a relative tolerance between 0 and 0.5 (e.g. 0.002), got {rtol!r}")
+    if int(max_levels) != max_levels or not 2 <= max_levels <= 7:
+        raise WavesError(f"max_levels must be a whole number from 2 to 7 (grids h, h/sqrt(2), ...), got {max_levels!r}")
+
+
+def _converge(values_at, num: Numerics, rtol: float, max_levels: int):
+    """Evaluate values_at(Numerics) on refined grids until successive Richardson
+    extrapolations agree to rtol; returns (levels, raw values, extrapolations, conv)."""
+    levels = refined_numerics(num, max_levels)
+    raw, ext, conv = [], [], math.inf
+    for k, nk in enumerate(levels):
+        raw.append(values_at(nk))
+        if k >= 1:
+            ext.append(richardson(raw[-2], raw[-1]))
+            prev = ext[-2] if len(ext) >= 2 else raw[-1]
+            conv = abs(ext[-1] - prev) / abs(ext[-1])
+            if len(ext) >= 2 and conv <= rtol:
+                break
+    return levels[:len(raw)], raw, ext, conv
+
+
+def converged_solitary_speed(model: str, *, params: dict | None = None, spacing: float | None = None,
+                             dt: float | None = None, length: float | None = None,
+                             rtol: float = DEFAULT_RTOL, max_levels: int = MAX_LEVELS) -> SolitarySpeed:
+    """Solitary-wave speed extrapolated to h -> 0 (module doc): cables on grids
+    spacing, spacing / sqrt(2), ... until successive Richardson values agree to rtol."""
+    _check_convergence_options(rtol, max_levels)
+    num = resolve_numerics(model, params, spacing=spacing, dt=dt)
+    if length is None:
+        length = 2.0 * _DEFAULT_RING_LENGTH.get(num.model, _FALLBACK_RING_LENGTH)
+    levels, raw, ext, conv = _converge(lambda nk: _cable(nk, float(length)).speed, num, rtol, max_levels)
+    return SolitarySpeed(float(ext[-1]), tuple(n.spacing for n in levels), tuple(n.dt for n in levels),
+                         tuple(float(v) for v in raw), tuple(float(v) for v in ext), float(conv),
+                         bool(conv <= rtol))
 
 
 # --------------------------------------------------------------------------- ring
@@ -371,55 +479,9 @@ def _check_not_oscillatory(num: Numerics, duration: float) -> None:
 # --------------------------------------------------------------------------- cache
 
 
-def default_cache_dir() -> pathlib.Path:
-    """$WAVES_CACHE_DIR, else $XDG_CACHE_HOME/waves, else ~/.cache/waves."""
-    env = os.environ.get("WAVES_CACHE_DIR")
-    if env:
-        return pathlib.Path(env)
-    xdg = os.environ.get("XDG_CACHE_HOME")
-    base = pathlib.Path(xdg) if xdg else pathlib.Path.home() / ".cache"
-    return base / "waves"
-
-
 def cache_key(kind: str, num: Numerics, settings: dict) -> str:
-    """SHA-256 (hex) of what determines a cached result."""
-    record = {
-        "kind": kind,
-        "algorithm_version": ALGORITHM_VERSION,
-        "model": num.model,
-        "params": {k: float(v) for k, v in sorted(num.params.items())},
-        "spacing": repr(float(num.spacing)),
-        "dt": repr(float(num.dt)),
-        "diffusion": repr(float(num.diffusion)),
-        "settings": settings,
-    }
-    text = json.dumps(record, sort_keys=True)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
-
-
-def _cache_read(path: pathlib.Path, key: str) -> dict | None:
-    try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return None
-    if not isinstance(data, dict) or data.get("key") != key:
-        return None
-    return data
-
-
-def _cache_write(path: pathlib.Path, data: dict) -> None:
-    from waves import io as wio
-
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        wio.write_json(path, data)
-    except OSError:  # a read-only cache only costs recomputation
-        pass
-
-
-def _cache_path(cache_dir, kind: str, model: str, key: str) -> pathlib.Path:
-    base = default_cache_dir() if cache_dir is None else pathlib.Path(cache_dir)
-    return base / f"{kind}-{model}-{key[:20]}.json"
+    """SHA-256 (hex) of what determines a cached result (`waves.dispersion_cache.cache_key`)."""
+    return _cache.cache_key(kind, num, settings, algorithm_version=ALGORITHM_VERSION)
 
 
 # --------------------------------------------------------------------------- curve
@@ -452,6 +514,11 @@ class DispersionCurve:
     key: str = ""
     from_cache: bool = False
     notes: tuple[str, ...] = field(default_factory=tuple)
+    spacings: tuple[float, ...] = ()
+    dts: tuple[float, ...] = ()
+    convergence_rel: float | None = None
+    shortest_period_convergence_rel: float | None = None
+    converged: bool | None = None
 
     def speed_at(self, period) -> np.ndarray:
         """c(T) between the computed rings: monotone cubic (PCHIP) interpolation of
@@ -503,7 +570,13 @@ class DispersionCurve:
             "shortest_period_model": self.shortest_period,
             "failed_length_model": self.failed_length,
             "notes": list(self.notes),
-            "method": "one pulse on periodic rings of shrinking length (waves.dispersion)",
+            "spacings_model": list(self.spacings),
+            "dts_model": list(self.dts),
+            "convergence_rel": self.convergence_rel,
+            "shortest_period_convergence_rel": self.shortest_period_convergence_rel,
+            "converged": self.converged,
+            "method": "one pulse on periodic rings of shrinking length (waves.dispersion)"
+                      + ("; Richardson-extrapolated over the grids" if len(self.spacings) > 1 else ""),
         }
 
     @classmethod
@@ -519,6 +592,11 @@ class DispersionCurve:
             shortest_period=float(d["shortest_period_model"]),
             failed_length=None if d["failed_length_model"] is None else float(d["failed_length_model"]),
             key=d.get("key", ""), from_cache=from_cache, notes=tuple(d.get("notes", ())),
+            spacings=tuple(float(v) for v in d.get("spacings_model", ())),
+            dts=tuple(float(v) for v in d.get("dts_model", ())),
+            convergence_rel=d.get("convergence_rel"),
+            shortest_period_convergence_rel=d.get("shortest_period_convergence_rel"),
+            converged=d.get("converged"),
         )
 
 
@@ -533,8 +611,16 @@ def dispersion_curve(
     bisections: int = 4,
     cache_dir: str | os.PathLike | None = None,
     use_cache: bool = True,
+    converge: bool = True,
+    rtol: float = DEFAULT_RTOL,
+    max_levels: int = MAX_LEVELS,
 ) -> DispersionCurve:
     """The dispersion relation c(T) of `model` on a 1-D ring (module doc).
+
+    converge=True (default): curves on grids spacing, spacing / sqrt(2), ...
+    Richardson-extrapolated until two successive extrapolations agree to
+    `rtol` (at most `max_levels` grids); the curve reports the grids and its
+    `convergence_rel`.  converge=False: one grid, `spacing` itself.
 
     params: model parameters (and 'diffusion', 'dt'); spacing, dt: numerics
     (see `resolve_numerics`).  max_length: starting (longest) ring, model
@@ -544,6 +630,8 @@ def dispersion_curve(
     folder of the cache (default `default_cache_dir()`); use_cache=False
     computes without reading or writing it.
     """
+    if converge and spacing is None:
+        spacing = _CONVERGE_START.get(get_model(model).name)
     num = resolve_numerics(model, params, spacing=spacing, dt=dt)
     spec = get_model(num.model)
     _require_recovery(spec)
@@ -559,18 +647,30 @@ def dispersion_curve(
             f"({16 * num.spacing:g}), got {max_length!r}"
         )
     settings = {"max_length": L0, "shrink": float(shrink), "bisections": int(bisections)}
+    if converge:
+        _check_convergence_options(rtol, max_levels)
+        settings.update(converge=True, rtol=float(rtol), max_levels=int(max_levels), ratio=REFINE_RATIO)
     key = cache_key("dispersion", num, settings)
-    path = _cache_path(cache_dir, "dispersion", num.model, key)
+    path = _cache.cache_path(cache_dir, "dispersion", num.model, key)
     if use_cache:
-        data = _cache_read(path, key)
+        data = _cache.cache_read(path, key)
         if data is not None:
             try:
                 return DispersionCurve.from_dict(data, from_cache=True)
             except (KeyError, TypeError, ValueError):
                 pass
-    curve = _compute_curve(num, L0, float(shrink), int(bisections), key)
+    if converge:
+        def one(nk: Numerics) -> DispersionCurve:
+            return dispersion_curve(num.model, params={**nk.params, "diffusion": nk.diffusion},
+                                    spacing=nk.spacing, dt=nk.dt, max_length=L0, shrink=shrink,
+                                    bisections=bisections, cache_dir=cache_dir, use_cache=use_cache,
+                                    converge=False)
+
+        curve = _converged_curve(one, num, float(rtol), int(max_levels), key)
+    else:
+        curve = _compute_curve(num, L0, float(shrink), int(bisections), key)
     if use_cache:
-        _cache_write(path, curve.to_dict())
+        _cache.cache_write(path, curve.to_dict())
     return curve
 
 
@@ -649,138 +749,61 @@ def _compute_curve(num: Numerics, L0: float, shrink: float, bisections: int, key
         model=num.model, params=dict(num.params), spacing=h, dt=num.dt, diffusion=num.diffusion,
         period=period, speed=speed, wavelength=length, steady=steady, solitary_speed=c_sol,
         shortest_period=float(period[0]), failed_length=failed, key=key, from_cache=False,
-        notes=tuple(notes),
+        notes=tuple(notes), spacings=(h,), dts=(num.dt,),
     )
 
 
-# --------------------------------------------------------------------------- spiral
-
-
-@dataclass(frozen=True)
-class SpiralPrediction:
-    """A spiral's rotation period and wavelength from a 2-D simulation, model units.
-
-    period: simulator ground truth (median interval of upward threshold
-    crossings at probe points after the first third of the run); None when
-    the spiral did not persist.  wavelength, speed: measured by the analyser
-    on the clean field (None when it found none).  n_cores: persistent cores
-    it found.  size, duration: field side and run length.
-    """
-
-    model: str
-    params: dict
-    spacing: float
-    diffusion: float
-    size: float
-    duration: float
-    period: float | None
-    period_q25: float | None
-    period_q75: float | None
-    wavelength: float | None
-    speed: float | None
-    n_cores: int
-    key: str = ""
-    from_cache: bool = False
-    notes: tuple[str, ...] = field(default_factory=tuple)
-
-    def to_dict(self) -> dict:
-        return {
-            "kind": "spiral", "key": self.key, "algorithm_version": ALGORITHM_VERSION,
-            "model": self.model, "params": dict(self.params), "spacing_model": self.spacing,
-            "diffusion_model": self.diffusion, "size_model": self.size,
-            "duration_model": self.duration, "period_model": self.period,
-            "period_q25_model": self.period_q25, "period_q75_model": self.period_q75,
-            "wavelength_model": self.wavelength, "speed_model": self.speed,
-            "n_cores": self.n_cores, "notes": list(self.notes),
-            "method": "2-D simulation from a broken wave (waves.simulate.simulate, initial='spiral')",
-        }
-
-    @classmethod
-    def from_dict(cls, d: dict, *, from_cache: bool = False) -> SpiralPrediction:
-        return cls(
-            model=d["model"], params=dict(d["params"]), spacing=float(d["spacing_model"]),
-            diffusion=float(d["diffusion_model"]), size=float(d["size_model"]),
-            duration=float(d["duration_model"]), period=d["period_model"],
-            period_q25=d["period_q25_model"], period_q75=d["period_q75_model"],
-            wavelength=d["wavelength_model"], speed=d["speed_model"], n_cores=int(d["n_cores"]),
-            key=d.get("key", ""), from_cache=from_cache, notes=tuple(d.get("notes", ())),
-        )
-
-
-def spiral_prediction(
-    model: str,
-    *,
-    params: dict | None = None,
-    spacing: float | None = None,
-    size: float | None = None,
-    duration: float | None = None,
-    seed: int = 0,
-    cache_dir: str | os.PathLike | None = None,
-    use_cache: bool = True,
-) -> SpiralPrediction:
-    """Rotation period, wavelength and speed of a spiral of `model`, model units.
-
-    params: model parameters (and 'diffusion', 'dt'); spacing: grid step
-    (model length units, default the model's); size: side of the square field
-    and duration: run length, model units (defaults per model, a few
-    wavelengths and about 15-20 rotations at the default parameters).  The
-    run is converted to the model's default time and length scales only so
-    that the analyser's default period band applies; the results are in model
-    units.  Cached like `dispersion_curve`.
-    """
-    num = resolve_numerics(model, params, spacing=spacing)
-    spec = get_model(num.model)
-    _require_recovery(spec)
-    side_d, dur_d, frame_model = _SPIRAL_DEFAULTS.get(num.model, _SPIRAL_FALLBACK)
-    side = float(side_d if size is None else size)
-    dur = float(dur_d if duration is None else duration)
-    if not (math.isfinite(side) and side >= 16 * num.spacing):
-        raise WavesError(f"size must be at least 16 grid steps ({16 * num.spacing:g} model units), got {size!r}")
-    if not (math.isfinite(dur) and dur > 0):
-        raise WavesError(f"duration must be a positive number of model time units, got {duration!r}")
-    settings = {"size": side, "duration": dur, "seed": int(seed)}
-    key = cache_key("spiral", num, settings)
-    path = _cache_path(cache_dir, "spiral", num.model, key)
-    if use_cache:
-        data = _cache_read(path, key)
-        if data is not None:
-            try:
-                return SpiralPrediction.from_dict(data, from_cache=True)
-            except (KeyError, TypeError, ValueError):
-                pass
-    from waves.simulate import simulate
-
-    t_s, l_um = spec.time_scale_s, spec.length_scale_um
-    n = int(round(side / num.spacing))
-    frame_s = frame_model * t_s
-    run = simulate(
-        num.model, size=(n, n), pixel_size_um=num.spacing * l_um, minutes=dur * t_s / 60.0,
-        frame_interval_s=frame_s, seed=int(seed), initial="spiral", dtype="float32",
-        params={**num.params, "diffusion": num.diffusion, "dt": num.dt, "time_scale_s": t_s,
-                "length_scale_um": l_um},
-        oversample=1, truth_analysis=True, progress=False,
+def _extrapolate_curves(a: DispersionCurve, b: DispersionCurve) -> DispersionCurve:
+    """Richardson combination of the curves of grids h (a) and h / sqrt(2) (b) at the
+    periods of b's rings that both carry (module doc)."""
+    t_lo = max(a.shortest_period, b.shortest_period)
+    keep = (b.period >= t_lo) & (b.period <= a.period[-1])
+    period = b.period[keep]
+    speed = richardson(a.speed_at(period), b.speed_at(period))
+    failed = None if b.failed_length is None else b.failed_length * (speed[0] * period[0]) / b.wavelength[keep][0]
+    return DispersionCurve(
+        model=b.model, params=dict(b.params), spacing=b.spacing, dt=b.dt, diffusion=b.diffusion,
+        period=period, speed=speed, wavelength=speed * period, steady=b.steady[keep].copy(),
+        solitary_speed=richardson(a.solitary_speed, b.solitary_speed), shortest_period=float(period[0]),
+        failed_length=failed, notes=b.notes,
     )
-    notes: list[str] = []
-    pm = run.truth.get("period_model")
-    an = run.truth.get("analysis", {})
-    if "error" in an:
-        notes.append("clean-field analysis: " + an["error"])
-    to_model_speed = (t_s / 60.0) / l_um
-    wl = an.get("wavelength_um")
-    sp = an.get("front_speed_um_per_min")
-    cores = an.get("spiral_cores") or []
-    if not cores:
-        notes.append("the analyser found no persistent spiral core on the clean field")
-    pred = SpiralPrediction(
-        model=num.model, params=dict(num.params), spacing=num.spacing, diffusion=num.diffusion,
-        size=n * num.spacing, duration=dur,
-        period=None if pm is None else float(pm["median"]),
-        period_q25=None if pm is None else float(pm["q25"]),
-        period_q75=None if pm is None else float(pm["q75"]),
-        wavelength=None if wl is None else float(wl["median"]) / l_um,
-        speed=None if sp is None else float(sp["median"]) * to_model_speed,
-        n_cores=len(cores), key=key, from_cache=False, notes=tuple(notes),
+
+
+def _curve_difference(new: DispersionCurve, old: DispersionCurve) -> tuple[float, float]:
+    """(largest relative speed difference over trains at least 5 % above both shortest
+    periods, and of the solitary speed; relative difference of the shortest periods)."""
+    t_lo = _CONVERGE_ABOVE * max(new.shortest_period, old.shortest_period)
+    T = new.period[(new.period >= t_lo) & (new.period <= old.period[-1])]
+    d = [abs(new.solitary_speed / old.solitary_speed - 1.0)]
+    if T.size:
+        d.append(float(np.max(np.abs(new.speed_at(T) / old.speed_at(T) - 1.0))))
+    return max(d), abs(new.shortest_period / old.shortest_period - 1.0)
+
+
+def _converged_curve(one, num: Numerics, rtol: float, max_levels: int, key: str) -> DispersionCurve:
+    levels = refined_numerics(num, max_levels)
+    raw: list[DispersionCurve] = []
+    ext: list[DispersionCurve] = []
+    conv, conv_t = math.inf, math.inf
+    for k, nk in enumerate(levels):
+        raw.append(one(nk))
+        if k == 0:
+            continue
+        ext.append(_extrapolate_curves(raw[-2], raw[-1]))
+        conv, conv_t = _curve_difference(ext[-1], ext[-2] if len(ext) >= 2 else raw[-1])
+        if len(ext) >= 2 and conv <= rtol:
+            break
+    best = ext[-1]
+    notes = list(best.notes)
+    if conv > rtol:
+        notes.append(f"not converged to {rtol:.2%} on {len(raw)} grids (down to h = {raw[-1].spacing:.4g}): "
+                     f"the last two extrapolations differ by {conv:.2%}")
+    used = levels[:len(raw)]
+    return DispersionCurve(
+        model=best.model, params=dict(num.params), spacing=num.spacing, dt=num.dt, diffusion=num.diffusion,
+        period=best.period, speed=best.speed, wavelength=best.wavelength, steady=best.steady,
+        solitary_speed=best.solitary_speed, shortest_period=best.shortest_period,
+        failed_length=best.failed_length, key=key, from_cache=False, notes=tuple(notes),
+        spacings=tuple(n.spacing for n in used), dts=tuple(n.dt for n in used),
+        convergence_rel=float(conv), shortest_period_convergence_rel=float(conv_t), converged=bool(conv <= rtol),
     )
-    if use_cache:
-        _cache_write(path, pred.to_dict())
-    return pred
