@@ -361,3 +361,23 @@ def test_an_internal_error_exits_1_in_one_line_and_debug_reraises(spiral_path, t
     assert not (out / "summary.json").exists()
     with pytest.raises(RuntimeError, match="lost its halo"):
         main(["--debug", "analyse", str(spiral_path), "--out", str(out), "--quiet", "--no-report"])
+
+
+def test_a_frame_step_and_bin_keep_file_frame_numbers_and_times(spiral_path, tmp_path):
+    from waves import io
+    from waves.result import analyse_file, read_table_csv
+
+    # by hand: frames 30, 32, ... of 20 s frames start 10 min into the file; a 2 x 2 bin
+    # centres pixel (0, 0) half a file pixel (5 um) in
+    stack = io.read_stack(spiral_path, frames=(30, 160, 2), bin=2)
+    assert (stack.first_frame, stack.frame_step, stack.bin) == (30, 2, 2)
+    assert stack.start_min == pytest.approx(10.0) and stack.origin_um == pytest.approx(5.0)
+    s = analyse_file(spiral_path, out=tmp_path / "step", frames=(30, 160, 2), bin=2).summary
+    cores = read_table_csv(tmp_path / "step" / "cores_per_frame.csv")
+    frames = np.asarray(cores["frame"], dtype=int)
+    assert frames.min() >= 30 and np.all((frames - 30) % 2 == 0)
+    np.testing.assert_allclose(np.asarray(cores["t_min"], dtype=float), frames * DT_S / 60.0)
+    trim = s["analysis"]["trimmed_frames_each_end"]  # in 40 s frames of the selection
+    assert _core(s)["first_min"] == pytest.approx(10.0 + trim * 2 * DT_S / 60.0)
+    # truth (waves.synthetic): core (915, 995) um, achieved 0 um on the 20 um grid
+    assert math.hypot(_core(s)["x_um"] - 915.0, _core(s)["y_um"] - 995.0) < 10.0
