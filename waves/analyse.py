@@ -832,7 +832,7 @@ def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, sp
                                      max_lag_frames=0.5 * period / dt_min)
         whole = c["first_window"][i] <= 0 and c["last_window"][i] in (-1, len(windows) - 1)
         if len(own):
-            period = float(np.median(own)) * dt_min
+            period = float(np.mean(own)) * dt_min  # = (last - first) / n over runs of own waves
             cv = float(np.std(own) / np.mean(own)) if len(own) >= 2 else float("nan")
         elif c["kind"][i] == "target" and not whole:
             period = cv = float("nan")  # a source for part of the movie; no own interval seen
