@@ -45,6 +45,7 @@ def test_fhn_solitary_speed_matches_mol_reference():
     assert raw < 0.95 * truth
 
 
+@pytest.mark.slow
 def test_barkley_dispersion_curve_matches_mol_ring_trains(tmp_path):
     P, V = ref.barkley_trains((9.0, 12.0, 17.0, 25.0))  # [MOL reference] periods 2.95-5.70
     curve = wd.dispersion_curve("barkley", cache_dir=tmp_path)
