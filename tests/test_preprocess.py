@@ -454,6 +454,45 @@ def test_smooth_space_reduces_white_noise_variance_as_predicted():
     assert ratio == pytest.approx(1 / (4 * math.pi * s * s), rel=0.1)
 
 
+@pytest.mark.parametrize("angle_deg", [0.0, 35.0, 120.0])
+def test_smooth_space_keeps_the_phase_of_a_plane_wave_up_to_the_edges(angle_deg):
+    # exact: every pixel's kernel is even in y and x, so a plane wave exp(i k.x) only
+    # loses amplitude; a reflected kernel mixed in the mirrored wave and flattened the
+    # phase gradient near the edges (the front-speed bias of issue 11)
+    sigma, wavelength = 2.8, 30.0
+    y, x = np.mgrid[0:60, 0:70]
+    a = np.deg2rad(angle_deg)
+    ph = 2 * np.pi * (x * np.cos(a) - y * np.sin(a)) / wavelength + 0.3
+    out = smooth_space(np.cos(ph), sigma_px=sigma) + 1j * smooth_space(np.sin(ph), sigma_px=sigma)
+    err = np.angle(out * np.exp(-1j * ph))
+    assert np.abs(err).max() < 1e-5  # float32 rounding; achieved 2e-7
+    # away from the edges it is scipy's Gaussian (reference library)
+    h = halo_px(sigma)
+    ref = ndi.gaussian_filter(np.cos(ph), sigma, truncate=4.0)
+    np.testing.assert_allclose(smooth_space(np.cos(ph), sigma_px=sigma)[h:-h, h:-h], ref[h:-h, h:-h], atol=1e-6)
+    # the edge row is smoothed along x only (scipy's 1-D Gaussian inside), a corner not at all
+    row0 = smooth_space(np.cos(ph), sigma_px=sigma)[0]
+    ref0 = ndi.gaussian_filter1d(np.cos(ph)[0], sigma, truncate=4.0)
+    np.testing.assert_allclose(row0[h:-h], ref0[h:-h], atol=1e-6)
+    assert row0[0] == pytest.approx(np.cos(ph)[0, 0], abs=1e-6)
+
+
+def test_smoothing_variance_is_the_variance_of_the_kernel_applied():
+    # the kernel at each position, read off the impulse responses of smooth_space
+    from waves.preprocess import smoothing_variance_px2
+
+    n, sigma = 40, 2.5
+    eye = np.eye(n)[:, None, :]  # frame t is the unit impulse at column t (one row: no y smoothing)
+    w = smooth_space(eye, sigma_px=sigma)[:, 0, :]  # w[t, i]: weight of column t in output i
+    pos = np.arange(n)
+    var = ((pos[:, None] - pos[None, :]) ** 2 * w).sum(axis=0)
+    np.testing.assert_allclose(smoothing_variance_px2(n, sigma_px=sigma), var, rtol=1e-5, atol=1e-6)
+    # sampled Gaussian cut at 4 sigma: variance sigma^2 inside (0.045 % below it, from the
+    # cut tails), 0 at the edge
+    assert var[n // 2] == pytest.approx(sigma**2, rel=2e-3)
+    assert var[0] == 0 and 0 < var[2] < var[5] < var[12]
+
+
 @pytest.mark.parametrize("sigma", [1.0, 2.7, 6.0])
 def test_smooth_space_tile_with_halo_equals_whole_frame(sigma):
     rng = np.random.default_rng(19)
