@@ -60,6 +60,10 @@ def test_no_estimate_without_a_propagating_wave():
     est, why = front_resolution(spec, spec.resolve_params({}), spacing=0.25, dt=0.01,
                                 diffusion=0.0)
     assert est is None and "diffusion" in why
+    # a cable the integrator refuses gives no estimate instead of failing the run
+    est, why = front_resolution(spec, spec.resolve_params({}), spacing=0.25, dt=0.05,
+                                diffusion=1.0)
+    assert est is None and "limit" in why
     with pytest.raises(WavesError, match="did not propagate"):
         cable_front_speed(spec, spec.resolve_params({"b": 0.5}), spacing=0.25, dt=0.01,
                           diffusion=1.0, length=50.0)

@@ -165,5 +165,7 @@ def _cached(model, key, h, dt, D):
         fine = _cable_speed(spec, params, h / 2, dt / 4, D, length, MAX_CELL_UPDATES * 8 / 9)
     except _NoEstimate as exc:
         return None, str(exc)
+    except WavesError as exc:  # e.g. a cable run that went non-finite: no estimate, no failure
+        return None, " ".join(str(exc).split())
     converged = fine + (fine - coarse) / 3.0
     return FrontResolution(h, dt, coarse, fine, converged, (coarse - converged) / converged), ""
