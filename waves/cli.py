@@ -94,7 +94,7 @@ def build_parser() -> argparse.ArgumentParser:
     _demo.add_arguments(p_demo)
     p_demo.set_defaults(func=_demo.run_from_args)
 
-    from waves import simulate as _simulate
+    from waves import simulate_cli as _simulate
 
     p_sim = sub.add_parser(
         "simulate", help="simulate an excitable medium and write a calibrated movie"

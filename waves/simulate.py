@@ -1,8 +1,8 @@
 """Simulate an excitable medium and write a calibrated movie with its ground truth.
 
 Python API: `simulate(model, *, out=..., ...) -> SimulationResult`; command
-line: `waves simulate MODEL --out FILE.tif [options]` (`add_arguments`,
-`run_from_args`).
+line: `waves simulate MODEL --out FILE.tif [options]` (`waves.simulate_cli`).
+Ground truth and the grid-resolution check: `waves.simulate_truth`.
 
 Calibration: one output pixel is `pixel_size_um`; the model grid step is
 h = pixel_size_um / length_scale_um model units.  When h is coarser than the
@@ -39,7 +39,6 @@ the command line) naming the error and the refinement that fixes it.
 
 from __future__ import annotations
 
-import argparse
 import bisect
 import dataclasses
 import math
@@ -53,14 +52,12 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from waves import __version__
-from waves.cli_common import parse_settings
 from waves.errors import WavesError
 from waves.models import get_model
 from waves.models.base import NUMERIC_NAMES, Integrator, check_time_step, stable_dt_limit
 from waves.models.crossings import period_from_crossings, upward_crossings
 from waves.models.grid import BOUNDARIES, Grid
 from waves.models.heterogeneity import Heterogeneity, Ramp, add_noise
-from waves.models.resolution import front_resolution
 from waves.models.stimulus import (
     INITIAL_CONDITIONS,
     ROTATIONS,
@@ -72,6 +69,12 @@ from waves.models.stimulus import (
 from waves.models.stimulus import (
     random_pacemakers as random_pacemakers_at,
 )
+from waves.simulate_truth import (
+    FRONT_SPEED_TOLERANCE,
+    clean_field_truth,
+    front_resolution_check,
+    summarise,
+)
 from waves.units import Calibration
 
 if TYPE_CHECKING:  # the renderer is imported only when a rendering is asked for
@@ -82,8 +85,7 @@ __all__ = [
     "SimulationResult",
     "upward_crossings",
     "period_from_crossings",
-    "add_arguments",
-    "run_from_args",
+    "FRONT_SPEED_TOLERANCE",
     "DTYPES",
     "RENDERS",
 ]
@@ -98,8 +100,6 @@ _NOISE_INTERVAL = 0.05
 _MAX_COARSENING = 1.5
 # fraction of the run treated as transient for the ground-truth period
 _TRANSIENT_FRACTION = 1.0 / 3.0
-# a run whose 1-D front speed estimate is off by more than this fraction is warned about
-FRONT_SPEED_TOLERANCE = 0.02
 
 
 @dataclass(frozen=True)
@@ -125,23 +125,6 @@ class SimulationResult:
     wall_time_s: float
     cell_updates_per_s: float
     warnings: tuple[str, ...] = ()
-
-
-# --------------------------------------------------------------------------- truth
-
-
-def _summary(values: list[float]) -> dict | None:
-    if not values:
-        return None
-    v = np.asarray(values, np.float64)
-    return {
-        "median": float(np.median(v)),
-        "q25": float(np.percentile(v, 25)),
-        "q75": float(np.percentile(v, 75)),
-        "min": float(v.min()),
-        "max": float(v.max()),
-        "n": int(v.size),
-    }
 
 
 # --------------------------------------------------------------------------- helpers
@@ -431,7 +414,7 @@ def simulate(
             raise WavesError(
                 f"transient_min must lie in 0..{run_min:g} min (the run), got {transient_min!r}"
             )
-    resolution, run_warnings = _front_resolution(
+    resolution, run_warnings = front_resolution_check(
         spec, model_params, h=h, dt=dt, diffusion=diffusion, pixel_size_um=pixel_size_um,
         oversample=oversample,
     )
@@ -711,13 +694,13 @@ def simulate(
         "threshold": spec.threshold,
         "transient_model": t_after,
         "transient_min": t_after * time_scale_s / 60.0,
-        "period_model": _summary(periods_model),
-        "period_min": _summary([p * to_min for p in periods_model]),
+        "period_model": summarise(periods_model),
+        "period_min": summarise([p * to_min for p in periods_model]),
         "probes": probe_rows,
     }
     if clean is not None:
         try:
-            truth["analysis"] = _clean_field_truth(clean, calibration)
+            truth["analysis"] = clean_field_truth(clean, calibration)
         finally:
             clean.close()
     updates = grid.n_cells * step
@@ -737,196 +720,3 @@ def simulate(
         calibration=calibration, n_frames=n_frames, final_state=integ.state.copy(),
         wall_time_s=wall, cell_updates_per_s=rate, warnings=tuple(run_warnings),
     )
-
-
-def _front_resolution(spec, params, *, h, dt, diffusion, pixel_size_um, oversample):
-    """The run's front speed error (`waves.models.resolution`) for the sidecar, and a
-    warning when it exceeds FRONT_SPEED_TOLERANCE, naming the refinement that fixes it."""
-    est, why = front_resolution(spec, params, spacing=h, dt=dt, diffusion=diffusion)
-    if est is None:
-        return {"estimated": False, "reason": why}, []
-    out = {"estimated": True, **est.to_dict(), "tolerance": FRONT_SPEED_TOLERANCE}
-    if abs(est.rel_error) <= FRONT_SPEED_TOLERANCE:
-        return out, []
-    n = est.refine_factor(FRONT_SPEED_TOLERANCE)
-    slow = "slow" if est.rel_error < 0 else "fast"
-    px = pixel_size_um / oversample
-    fix = oversample * n
-    return out, [
-        f"the grid under-resolves the {spec.name} front: at grid step h = {h:.4g} model units "
-        f"({px:.4g} um) its speed is about {abs(est.rel_error):.1%} {slow} (1-D estimate "
-        f"{est.speed:.4g} against {est.speed_converged:.4g} converged); a grid step of "
-        f"{h / n:.4g} ({px / n:.4g} um) brings it under {FRONT_SPEED_TOLERANCE:.0%}: "
-        f"oversample={fix} (--oversample {fix})"
-    ]
-
-
-def _clean_field_truth(clean, calibration: Calibration) -> dict:
-    """The analyser's findings on the clean observable: the same functions
-    that measure recorded stacks, on the field before rendering and noise."""
-    from waves.analyse import analyse_movie
-
-    method = "waves.analyse.analyse_movie on the clean observable (before rendering and noise)"
-    try:
-        s = analyse_movie(clean.view(), calibration=calibration).summary
-    except WavesError as exc:
-        return {"method": method, "error": " ".join(str(exc).split())}
-    return {
-        "method": method,
-        "spiral_cores": s["spiral_cores"],
-        "period_min": s["period_min"],
-        "front_speed_um_per_min": s["front_speed_um_per_min"],
-        "wavelength_um": s["wavelength_um"],
-        "period_timecourse": s["period_timecourse"],
-        "warnings": s["warnings"],
-    }
-
-
-# --------------------------------------------------------------------------- CLI
-
-
-def _read_toml(path: str) -> dict:
-    try:
-        import tomllib
-    except ModuleNotFoundError:  # Python 3.10
-        import tomli as tomllib
-    p = Path(path)
-    if not p.is_file():
-        raise WavesError(f"parameter file {path!r} not found; give a TOML file of name = value")
-    try:
-        with p.open("rb") as fh:
-            data = tomllib.load(fh)
-    except tomllib.TOMLDecodeError as exc:
-        raise WavesError(f"parameter file {path!r} is not valid TOML: {exc}") from None
-    if "params" in data and isinstance(data["params"], dict) and len(data) == 1:
-        data = data["params"]
-    for key, val in data.items():
-        if isinstance(val, bool) or not isinstance(val, (int, float)):
-            raise WavesError(
-                f"parameter file {path!r}: {key!r} must be a number (name = value), got {val!r}"
-            )
-    return {k: float(v) for k, v in data.items()}
-
-
-def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Add the `simulate` options to `parser`."""
-    parser.add_argument("model", help="model name: barkley, fhn, nagumo (or relay if installed)")
-    parser.add_argument("--out", required=True, metavar="FILE.tif",
-                        help="output movie; the ground truth goes to FILE.json beside it")
-    parser.add_argument("--size", nargs="+", default=["256"], metavar="N",
-                        help="field size in pixels: N (square) or NY NX (default 256)")
-    parser.add_argument("--pixel-size", dest="pixel_size_um", type=float, metavar="UM",
-                        help="pixel size in micrometres (default: the model's grid step)")
-    parser.add_argument("--minutes", type=float, default=100.0,
-                        help="simulated duration in minutes (default 100)")
-    parser.add_argument("--frame-interval", dest="frame_interval_s", type=float, default=20.0,
-                        metavar="S", help="seconds between frames (default 20)")
-    parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
-    parser.add_argument("--set", dest="set_params", action="append", default=[],
-                        metavar="NAME=VALUE",
-                        help="model parameter or numeric (dt, diffusion, time_scale_s, "
-                             "length_scale_um); repeatable; wins over --params")
-    parser.add_argument("--params", dest="params_file", metavar="FILE.toml",
-                        help="TOML file of name = value parameters")
-    parser.add_argument("--initial", choices=INITIAL_CONDITIONS, default="spiral",
-                        help="initial condition (default spiral)")
-    parser.add_argument("--rotation", choices=ROTATIONS, default="counterclockwise",
-                        help="spiral rotation as displayed (default counterclockwise)")
-    parser.add_argument("--boundary", choices=BOUNDARIES, default="noflux")
-    parser.add_argument("--observable", help="model variable to write (default the first)")
-    parser.add_argument("--dtype", choices=DTYPES, default="uint16",
-                        help="uint16 (scaled over the model's fixed range) or float32 (raw)")
-    parser.add_argument("--render", choices=RENDERS,
-                        help="write a dark-field-like camera rendering instead of the variable")
-    parser.add_argument("--pacemaker", nargs=3, action="append", default=[], type=float,
-                        metavar=("Y_UM", "X_UM", "PERIOD_MIN"),
-                        help="a pacemaker disc firing every PERIOD_MIN; repeatable")
-    parser.add_argument("--vary", nargs=3, action="append", default=[],
-                        metavar=("NAME", "REL_SD", "CORR_UM"),
-                        help="random spatial variation of a parameter; repeatable")
-    parser.add_argument("--ramp", nargs=3, action="append", default=[],
-                        metavar=("NAME", "START", "END"),
-                        help="parameter changing linearly over the run; repeatable")
-    parser.add_argument("--noise", type=float, default=0.0,
-                        help="additive noise intensity on the first variable (default 0)")
-    parser.add_argument("--polarity", choices=("bright", "dark"), default="bright",
-                        help="with --render darkfield: excited bands bright or dark")
-    parser.add_argument("--center", nargs=2, type=float, metavar=("Y_UM", "X_UM"),
-                        help="spiral core / target / pacing site (default: field centre)")
-    parser.add_argument("--random-pacemakers", nargs=3, type=float,
-                        metavar=("N", "PERIOD_MIN_LOW", "PERIOD_MIN_HIGH"),
-                        help="N spontaneous pacemakers at random sites (seeded), each with a "
-                             "random period in the range and a random first firing")
-    parser.add_argument("--threads", type=int,
-                        help="compiled-kernel threads (default: automatic)")
-    parser.add_argument("--oversample", type=int, metavar="N",
-                        help="simulate on a grid N times finer than the pixels (default: automatic)")
-    parser.add_argument("--transient", dest="transient_min", type=float, metavar="MIN",
-                        help="ground-truth periods from crossings after MIN minutes "
-                             "(default: the first third of the run is transient)")
-    parser.add_argument("--no-truth-analysis", action="store_true",
-                        help="skip analysing the clean field for ground-truth cores and speed")
-    parser.add_argument("--quiet", action="store_true", help="no progress bar")
-
-
-def _float(text: str, what: str) -> float:
-    try:
-        return float(text)
-    except ValueError:
-        raise WavesError(f"{what}: {text!r} is not a number") from None
-
-
-def run_from_args(args: argparse.Namespace) -> int:
-    """Run `waves simulate` from parsed arguments; returns the exit code."""
-    params = _read_toml(args.params_file) if args.params_file else {}
-    params.update(parse_settings(args.set_params))
-    sizes = []
-    for s in args.size:
-        try:
-            sizes.append(int(s))
-        except ValueError:
-            raise WavesError(f"--size: {s!r} is not an integer") from None
-    if len(sizes) not in (1, 2):
-        raise WavesError("--size takes N or NY NX")
-    hets = tuple(
-        Heterogeneity(name, _float(sd, "--vary REL_SD"), _float(c, "--vary CORR_UM"))
-        for name, sd, c in args.vary
-    )
-    ramps = tuple(
-        Ramp(name, _float(a, "--ramp START"), _float(b, "--ramp END")) for name, a, b in args.ramp
-    )
-    pacers = tuple(Pacemaker(y, x, p) for y, x, p in args.pacemaker)
-    spontaneous = None
-    if args.random_pacemakers is not None:
-        n, lo, hi = args.random_pacemakers
-        spontaneous = (n, lo, hi)
-    style = None
-    if args.render == "darkfield":
-        from waves.render import DarkfieldStyle
-
-        style = DarkfieldStyle(polarity=args.polarity)
-    res = simulate(
-        args.model, out=args.out, size=sizes, pixel_size_um=args.pixel_size_um,
-        minutes=args.minutes, frame_interval_s=args.frame_interval_s, seed=args.seed,
-        params=params, initial=args.initial, rotation=args.rotation, boundary=args.boundary,
-        heterogeneity=hets, pacemakers=pacers, ramps=ramps, noise=args.noise,
-        observable=args.observable, dtype=args.dtype, render=args.render,
-        darkfield_style=style, center_um=args.center, threads=args.threads,
-        truth_analysis=not args.no_truth_analysis,
-        random_pacemakers=spontaneous, oversample=args.oversample,
-        transient_min=args.transient_min,
-        progress=not args.quiet,
-    )
-    for w in res.warnings:
-        print(f"warning: {w}", file=sys.stderr)
-    per = res.truth["period_min"]
-    per_text = "no period measured" if per is None else f"period {per['median']:.2f} min"
-    if not args.quiet:
-        print(
-            f"wrote {res.path} ({res.n_frames} frames, {res.calibration.pixel_size_um:g} um/px, "
-            f"{res.calibration.frame_interval_s:g} s/frame; {per_text}; "
-            f"{res.cell_updates_per_s:.3g} cell-updates/s) and {res.sidecar_path}",
-            file=sys.stderr,
-        )
-    return 0
-
