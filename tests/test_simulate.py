@@ -335,10 +335,18 @@ def test_under_resolved_front_warns_and_a_resolved_run_does_not(tmp_path, capsys
     assert len(api.warnings) == 1 and "under-resolves" in api.warnings[0]
 
 
-def test_transient_sets_where_the_ground_truth_period_starts():
+def test_transient_sets_where_the_ground_truth_period_starts(tmp_path):
     res = simulate("barkley", out=None, size=32, minutes=6, truth_analysis=False,
                    transient_min=4.5)
     assert res.truth["transient_min"] == pytest.approx(4.5)
     assert res.truth["transient_model"] == pytest.approx(4.5 * 60 / 130)
+    # default: the first third of the run (module doc)
+    res = simulate("barkley", out=None, size=16, minutes=6, truth_analysis=False)
+    assert res.truth["transient_min"] == pytest.approx(2.0)
+    out = tmp_path / "t.tif"
+    assert main(["simulate", "barkley", "--out", str(out), "--size", "16", "--minutes", "3",
+                 "--transient", "1.5", "--quiet", "--no-truth-analysis"]) == 0
+    side = json.loads(out.with_suffix(".json").read_text())
+    assert side["truth"]["transient_min"] == pytest.approx(1.5)
     with pytest.raises(WavesError, match="transient_min"):
         simulate("barkley", out=None, size=16, minutes=2, transient_min=3.0)
