@@ -17,15 +17,23 @@ from waves.dispersion import dispersion_curve
 from waves.errors import InputError, WavesError
 
 
+@pytest.fixture(scope="module")
+def model_cache(tmp_path_factory):
+    return tmp_path_factory.mktemp("model-cache")
+
+
 @pytest.fixture
-def barkley_curve(tmp_path):
-    return dispersion_curve("barkley", cache_dir=tmp_path / "cache")
+def barkley_curve(model_cache):
+    return dispersion_curve("barkley", cache_dir=model_cache)
 
 
 def _synthetic(curve, time_scale_s, length_scale_um, rng, noise):
+    # trains within 5 % of the shortest period are marginal (steep end; a measured field carries
+    # steady trains), so the points start above it
     s_t = time_scale_s / 60.0
-    P = curve.period * s_t
-    V = curve.speed * length_scale_um / s_t * np.exp(noise * rng.standard_normal(P.size))
+    keep = curve.period > 1.05 * curve.shortest_period
+    P = curve.period[keep] * s_t
+    V = curve.speed[keep] * length_scale_um / s_t * np.exp(noise * rng.standard_normal(P.size))
     return P, V
 
 
@@ -63,7 +71,7 @@ def test_fixed_scale_and_unconstrained_time_scale(barkley_curve):
     assert fit.fixed == ("time_scale_s",)
     assert fit.values["length_scale_um"] == pytest.approx(250.0, rel=1e-3)
     # only points on the plateau, with 1 % scatter: the speed fixes s_l / s_t, not s_t itself
-    flat = barkley_curve.period > 0.6 * barkley_curve.period[-1]
+    flat = P > 0.6 * P.max()
     noisy = V[flat] * np.exp(0.01 * np.random.default_rng(2).standard_normal(flat.sum()))
     fit = wc.fit_scales(barkley_curve, P[flat], noisy, robust_scale=None)
     assert not fit.constrained["time_scale_s"]
@@ -83,9 +91,9 @@ def test_relay_diffusion_enters_as_square_root():
     # a ring curve computed at twice the diffusion coefficient, fitted with the curve at
     # D0 and the sqrt(D / D0) law (dimensional analysis, common practice); 3 % allows for
     # the 40 um grid, which resolves the front better at larger D
-    base = dispersion_curve("relay", params={"ke_per_min": 10.0}, spacing=0.4, use_cache=False)
+    base = dispersion_curve("relay", params={"ke_per_min": 10.0}, spacing=0.4, use_cache=False, converge=False)
     double = dispersion_curve("relay", params={"ke_per_min": 10.0, "diffusion": 4.8}, spacing=0.4,
-                              use_cache=False)
+                              use_cache=False, converge=False)
     fit = wc.fit_relay([(10.0, base)], double.period, double.speed * 100.0, robust_scale=None)
     assert fit.fixed == ("ke_per_min",)
     assert fit.values["diffusion_um2_per_min"] == pytest.approx(48000.0, rel=0.03)
@@ -93,10 +101,11 @@ def test_relay_diffusion_enters_as_square_root():
 
 def test_relay_fit_recovers_ke_and_diffusion():
     # truth: a curve computed at ke = 11 /min and D = 30000 um^2/min, between the grid curves
-    grid = [(k, dispersion_curve("relay", params={"ke_per_min": k}, spacing=0.4, use_cache=False))
+    # one grid on both sides (construction: the fit's interpolation in ke, not the numerics)
+    grid = [(k, dispersion_curve("relay", params={"ke_per_min": k}, spacing=0.4, use_cache=False, converge=False))
             for k in (9.0, 10.0, 12.0)]
     truth = dispersion_curve("relay", params={"ke_per_min": 11.0, "diffusion": 3.0}, spacing=0.4,
-                             use_cache=False)
+                             use_cache=False, converge=False)
     # trains within 5 % of the shortest period are marginal (alternans; the shortest period is
     # known only to the last bisection step): a measured field carries steady trains
     keep = truth.steady & (truth.period > 1.05 * truth.shortest_period)
@@ -105,16 +114,16 @@ def test_relay_fit_recovers_ke_and_diffusion():
     assert fit.values["diffusion_um2_per_min"] == pytest.approx(30000.0, rel=0.05)
 
 
-def test_compare_relay_fits_diffusion_and_ke(tmp_path):
-    # measured points: a relay ring curve at ke = 11 /min, D = 30000 um^2/min (computed
-    # independently), in a folder with one spiral core; model grid ke = 10, 12 /min
+def test_compare_relay_fits_diffusion_and_ke(tmp_path, model_cache):
+    # measured points: a converged relay ring curve at ke = 11 /min, D = 30000 um^2/min (computed
+    # separately), in a folder with one spiral core; model grid ke = 10, 12 /min
     truth = dispersion_curve("relay", params={"ke_per_min": 11.0, "diffusion": 3.0}, spacing=0.4,
-                             use_cache=False)
+                             cache_dir=model_cache)
     keep = truth.steady & (truth.period > 1.05 * truth.shortest_period)  # steady trains, as above
     rows = [(float(k), T, 100.0 * c) for k, (T, c) in enumerate(zip(truth.period[keep], truth.speed[keep], strict=True))]
     _write_analysis(tmp_path / "a", rows, cores=1)
     comp = wc.compare_analysis(tmp_path / "a", "relay", spacing=0.4, ke_grid=(10.0, 12.0),
-                               cache_dir=tmp_path / "cache")
+                               cache_dir=model_cache, spiral_levels=1)
     assert comp.fit.values["ke_per_min"] == pytest.approx(11.0, rel=0.05)
     assert comp.fit.values["diffusion_um2_per_min"] == pytest.approx(30000.0, rel=0.05)
     assert comp.spiral is not None and comp.spiral["period_min"] > comp.curve["shortest_period_min"]
@@ -122,6 +131,7 @@ def test_compare_relay_fits_diffusion_and_ke(tmp_path):
     rec = json.loads(paths["json"].read_text())
     assert rec["model"] == "relay"
     assert rec["numerics"]["ke_grid_per_min"] == [10.0, 12.0]
+    assert rec["numerics"]["convergence_rel"] <= 0.005 and len(rec["numerics"]["spacings_model"]) == 2
     assert {c["quantity"] for c in rec["checks"]} >= {"spiral period (min)", "spiral wavelength (um)"}
 
 
@@ -164,14 +174,14 @@ def _parser():
     return p
 
 
-def test_compare_command_writes_table_figure_and_json(tmp_path, barkley_curve):
+def test_compare_command_writes_table_figure_and_json(tmp_path, barkley_curve, model_cache):
     # measured points lying on the model curve at known scales, in two folders
     P, V = _synthetic(barkley_curve, 120.0, 200.0, np.random.default_rng(5), 0.01)
     half = P.size // 2
     _write_analysis(tmp_path / "one", [(10.0 + k, p, v) for k, (p, v) in enumerate(zip(P[:half], V[:half], strict=True))])
     _write_analysis(tmp_path / "two", [(10.0 + k, p, v) for k, (p, v) in enumerate(zip(P[half:], V[half:], strict=True))])
     args = _parser().parse_args([str(tmp_path / "one"), str(tmp_path / "two"), "--model", "barkley",
-                                 "--no-spiral", "--cache-dir", str(tmp_path / "cache"), "--quiet"])
+                                 "--no-spiral", "--cache-dir", str(model_cache), "--quiet"])
     assert wc.run_from_args(args) == 0
     rec = json.loads((tmp_path / "one" / "compare_barkley.json").read_text())
     assert rec["fit"]["values"]["time_scale_s"] == pytest.approx(120.0, rel=0.03)
@@ -183,20 +193,27 @@ def test_compare_command_writes_table_figure_and_json(tmp_path, barkley_curve):
     table = read_table_csv(tmp_path / "one" / "compare_barkley.csv")
     assert len(table["period_min"]) == P.size
     assert set(table["in_model_range"]) == {"yes"}
+    # the model's convergence estimate is in the table, the JSON and the checks
+    conv = rec["numerics"]["convergence_rel"]
+    assert conv == barkley_curve.convergence_rel and conv <= 0.005
+    np.testing.assert_allclose(np.asarray(table["model_convergence_rel"], float), conv)
+    row = [c for c in rec["checks"] if c["quantity"].startswith("model curve converged")][0]
+    assert row["relative_difference"] == conv and row["reproduced"] is True
+    assert rec["numerics"]["spacings_model"] == list(barkley_curve.spacings)
     import matplotlib.image
 
     img = matplotlib.image.imread(tmp_path / "one" / "compare_barkley.png")
     assert img.ndim == 3 and img.shape[0] > 100
 
 
-def test_compare_reports_points_faster_than_the_model(tmp_path, barkley_curve):
+def test_compare_reports_points_faster_than_the_model(tmp_path, barkley_curve, model_cache):
     # with the time scale fixed, periods below the shortest model period cannot be carried
     s_t = 60.0 / 60.0
     rows = [(1.0 + k, T * s_t, c * 100.0 / s_t) for k, (T, c) in enumerate(zip(barkley_curve.period, barkley_curve.speed, strict=True))]
     rows.append((50.0, 0.5 * barkley_curve.shortest_period, 50.0))
     _write_analysis(tmp_path / "a", rows)
     comp = wc.compare_analysis(tmp_path / "a", "barkley", params={"time_scale_s": 60.0}, spiral=False,
-                               cache_dir=tmp_path / "cache")
+                               cache_dir=model_cache)
     assert comp.fit.values["length_scale_um"] == pytest.approx(100.0, rel=0.01)
     assert comp.fit.in_model_range.sum() == len(rows) - 1
     carry = [c for c in comp.checks if c["quantity"].startswith("periods the model can carry")][0]
@@ -239,9 +256,11 @@ def test_simulated_stacks_recover_time_and_length_scales(tmp_path):
              truth_analysis=False)
     analyse_file(tmp_path / "spiral.tif", out=tmp_path / "a_spiral")
     analyse_file(tmp_path / "paced.tif", out=tmp_path / "a_paced")
+    # the stacks were simulated on the default grid h = 0.25, whose waves run 5-7 % slower than the
+    # converged model (test_dispersion_reference): the model on that same grid is what they obey
     args = _parser().parse_args([str(tmp_path / "a_spiral"), str(tmp_path / "a_paced"), "--model", "barkley",
                                  "--out", str(tmp_path / "cmp"), "--cache-dir", str(tmp_path / "cache"),
-                                 "--quiet"])
+                                 "--quiet", "--no-converge", "--spacing", "0.25"])
     assert wc.run_from_args(args) == 0
     rec = json.loads((tmp_path / "cmp" / "compare_barkley.json").read_text())
     assert rec["fit"]["values"]["time_scale_s"] == pytest.approx(time_scale_s, rel=0.05)
@@ -250,6 +269,13 @@ def test_simulated_stacks_recover_time_and_length_scales(tmp_path):
     sp = [c for c in rec["checks"] if c["quantity"] == "spiral period (min)" and c["folder"].endswith("a_spiral")]
     assert sp[0]["reproduced"] is True
     assert (tmp_path / "cmp" / "compare_barkley.png").stat().st_size > 10000
+    # against the converged model the grid error of the simulation shows up in the length scale
+    args = _parser().parse_args([str(tmp_path / "a_spiral"), str(tmp_path / "a_paced"), "--model", "barkley",
+                                 "--out", str(tmp_path / "cmp2"), "--cache-dir", str(tmp_path / "cache"),
+                                 "--quiet", "--no-spiral"])
+    assert wc.run_from_args(args) == 0
+    rec2 = json.loads((tmp_path / "cmp2" / "compare_barkley.json").read_text())
+    assert rec2["fit"]["values"]["length_scale_um"] < 0.97 * length_scale_um
 
 
 def test_cluster_robust_covariance_equals_hand_sandwich():
@@ -276,3 +302,110 @@ def test_cluster_robust_covariance_equals_hand_sandwich():
     # and the clustered errors make it wider than the independent-points formula
     iid = _solve(lambda b: y - X @ b, np.zeros(2), robust_scale=None)[3]
     assert cov[1, 1] > iid[1, 1]
+
+
+@pytest.mark.slow
+def test_scales_recovered_from_independent_mol_trains(model_cache):
+    """Measured points from the independent method-of-lines reference (tests/reference_mol.py:
+    Barkley ring trains by solve_ivp, Richardson over h = 0.1, 0.05), put into minutes and um/min
+    with known scales: the fit against waves' converged curve returns them.  Unlike the
+    simulated-stack test, kernel and grid errors are not shared by points and curve."""
+    import reference_mol as ref
+
+    P, V = ref.barkley_trains((9.0, 12.0, 17.0, 25.0))
+    time_scale_s, length_scale_um = 90.0, 250.0
+    s_t = time_scale_s / 60.0
+    curve = dispersion_curve("barkley", cache_dir=model_cache)
+    fit = wc.fit_scales(curve, P * s_t, V * length_scale_um / s_t, robust_scale=None)
+    # achieved: time scale 0.06 %, length scale 0.08 % off; tolerance 0.3 % (a 2 % model error fails)
+    assert fit.values["time_scale_s"] == pytest.approx(time_scale_s, rel=0.003)
+    assert fit.values["length_scale_um"] == pytest.approx(length_scale_um, rel=0.003)
+    # the one-grid curve at h = 0.25 is 5-7 % slow: its length scale comes out wrong by more than that
+    raw = dispersion_curve("barkley", converge=False, cache_dir=model_cache)
+    bad = wc.fit_scales(raw, P * s_t, V * length_scale_um / s_t, robust_scale=None)
+    assert abs(bad.values["length_scale_um"] / length_scale_um - 1) > 0.03
+
+
+def _cli(argv):
+    from waves.cli import main
+
+    return main(argv)
+
+
+def _points_on_curve(curve, time_scale_s, length_scale_um, t_min):
+    s_t = time_scale_s / 60.0
+    keep = curve.period > 1.1 * curve.shortest_period
+    P, V = curve.period[keep] * s_t, curve.speed[keep] * length_scale_um / s_t
+    return [(float(t_min[k % len(t_min)]), float(p), float(v)) for k, (p, v) in enumerate(zip(P, V, strict=True))]
+
+
+def test_cli_t_range_keeps_only_the_windows_inside(tmp_path, barkley_curve, model_cache):
+    rows = _points_on_curve(barkley_curve, 90.0, 200.0, np.arange(5.0, 50.0, 5.0))
+    _write_analysis(tmp_path / "a", rows)
+    code = _cli(["compare", str(tmp_path / "a"), "--model", "barkley", "--no-spiral", "--quiet",
+                 "--cache-dir", str(model_cache), "--t-range", "12", "31"])
+    assert code == 0
+    from waves.result import read_table_csv
+
+    table = read_table_csv(tmp_path / "a" / "compare_barkley.csv")
+    # truth: the rows written above whose window centre lies in [12, 31] min
+    want = sorted((t, p) for t, p, _ in rows if 12.0 <= t <= 31.0)
+    got = sorted(zip(np.asarray(table["t_min"], float), np.asarray(table["period_min"], float), strict=True))
+    assert len(got) == len(want) and len(want) < len(rows)
+    np.testing.assert_allclose(np.array(got), np.array(want), rtol=1e-9)
+
+
+def test_cli_spacing_sets_the_coarsest_model_grid(tmp_path, barkley_curve, model_cache):
+    rows = _points_on_curve(barkley_curve, 90.0, 200.0, np.arange(5.0, 50.0, 5.0))
+    _write_analysis(tmp_path / "a", rows)
+    assert _cli(["compare", str(tmp_path / "a"), "--model", "barkley", "--no-spiral", "--quiet",
+                 "--cache-dir", str(model_cache), "--spacing", "0.3", "--out", str(tmp_path / "o")]) == 0
+    rec = json.loads((tmp_path / "o" / "compare_barkley.json").read_text())
+    grids = rec["numerics"]["spacings_model"]
+    # truth: the given h and the refinement rule h / sqrt(2)^k (waves.dispersion module doc)
+    assert rec["numerics"]["spacing_model"] == 0.3 and grids[0] == 0.3
+    np.testing.assert_allclose(grids, 0.3 / np.sqrt(2.0) ** np.arange(len(grids)), rtol=1e-12)
+    # converged either way: the fitted length scale hardly depends on the starting grid
+    # (0.25 gives 200 by construction; achieved difference below 0.2 %)
+    assert rec["fit"]["values"]["length_scale_um"] == pytest.approx(200.0, rel=0.005)
+
+
+def test_cli_tolerance_decides_reproduced_at_a_known_ratio(tmp_path, barkley_curve, model_cache):
+    # points exactly on the curve at known scales (time scale held fixed), and a summary whose
+    # median front speed is the model's times 1.05: the model is 1/1.05 - 1 = -4.76 % off
+    rows = _points_on_curve(barkley_curve, 60.0, 100.0, np.arange(5.0, 50.0, 5.0))
+    _write_analysis(tmp_path / "a", rows)
+    summary = json.loads((tmp_path / "a" / "summary.json").read_text())
+    p_med = summary["period_min"]["median"]
+    v_model = float(barkley_curve.speed_at([p_med])[0]) * 100.0
+    summary["front_speed_um_per_min"]["median"] = 1.05 * v_model
+    (tmp_path / "a" / "summary.json").write_text(json.dumps(summary))
+    verdict = {}
+    for tol in ("0.04", "0.055"):
+        out = tmp_path / f"o{tol}"
+        assert _cli(["compare", str(tmp_path / "a"), "--model", "barkley", "--no-spiral", "--quiet",
+                     "--set", "time_scale_s=60", "--cache-dir", str(model_cache), "--tolerance", tol,
+                     "--out", str(out)]) == 0
+        rec = json.loads((out / "compare_barkley.json").read_text())
+        row = [c for c in rec["checks"] if c["quantity"].startswith("front speed at the median")][0]
+        assert row["relative_difference"] == pytest.approx(1 / 1.05 - 1, abs=1e-3)
+        verdict[tol] = row["reproduced"]
+        assert rec["tolerance_relative"] == float(tol)
+    assert verdict == {"0.04": False, "0.055": True}
+
+
+@pytest.mark.slow
+def test_cli_ke_grid_sets_the_relay_curves(tmp_path, model_cache):
+    # points: a converged relay curve at ke = 11 /min (default D); --ke-grid 10 12 must be the
+    # curves used (truth: the given list) and bracket the fitted ke
+    truth = dispersion_curve("relay", params={"ke_per_min": 11.0}, spacing=0.4, cache_dir=model_cache)
+    keep = truth.steady & (truth.period > 1.05 * truth.shortest_period)
+    rows = [(float(k), T, 100.0 * c) for k, (T, c) in enumerate(zip(truth.period[keep], truth.speed[keep], strict=True))]
+    _write_analysis(tmp_path / "a", rows)
+    assert _cli(["compare", str(tmp_path / "a"), "--model", "relay", "--no-spiral", "--quiet", "--spacing", "0.4",
+                 "--cache-dir", str(model_cache), "--ke-grid", "12", "10"]) == 0
+    rec = json.loads((tmp_path / "a" / "compare_relay.json").read_text())
+    assert rec["numerics"]["ke_grid_per_min"] == [10.0, 12.0]
+    assert len(rec["numerics"]["cache_keys"]) == 2
+    assert 10.0 < rec["fit"]["values"]["ke_per_min"] < 12.0
+    assert rec["fit"]["values"]["ke_per_min"] == pytest.approx(11.0, rel=0.05)

@@ -67,7 +67,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from waves.cli_common import parse_settings
-from waves.dispersion import DispersionCurve, dispersion_curve, spiral_prediction
+from waves.dispersion import DispersionCurve, dispersion_curve
+from waves.spirals import SPIRAL_LEVELS, spiral_prediction
 from waves.errors import InputError, WavesError
 from waves.models import get_model
 
@@ -719,7 +720,8 @@ def _convergence_record(curves) -> dict:
     }
 
 
-def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir, use_cache, notes, clusters=None):
+def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir, use_cache, notes, clusters=None,
+                     converge=True):
     from waves.models.relay import LENGTH_UNIT_UM
 
     rest = dict(params or {})
@@ -731,7 +733,7 @@ def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir,
     for ke in kes:
         try:
             curves.append((ke, dispersion_curve("relay", params={**rest, "ke_per_min": ke}, spacing=spacing,
-                                                cache_dir=cache_dir, use_cache=use_cache)))
+                                                cache_dir=cache_dir, use_cache=use_cache, converge=converge)))
         except WavesError as exc:
             if ke_fixed is not None:
                 raise
@@ -765,11 +767,13 @@ def _fit_relay_model(P, V, params, *, spacing, ke_grid, robust_scale, cache_dir,
     return fit, _Model(speed, curve, 1.0, s_l), numerics, model_params, spiral_params
 
 
-def _fit_scaled_model(spec, P, V, params, *, spacing, robust_scale, cache_dir, use_cache, clusters=None):
+def _fit_scaled_model(spec, P, V, params, *, spacing, robust_scale, cache_dir, use_cache, clusters=None,
+                      converge=True):
     given = dict(params or {})
     ts = given.pop("time_scale_s", None)
     ls = given.pop("length_scale_um", None)
-    c = dispersion_curve(spec.name, params=given, spacing=spacing, cache_dir=cache_dir, use_cache=use_cache)
+    c = dispersion_curve(spec.name, params=given, spacing=spacing, cache_dir=cache_dir, use_cache=use_cache,
+                         converge=converge)
     fit = fit_scales(c, P, V, time_scale_s=ts, length_scale_um=ls, robust_scale=robust_scale, clusters=clusters)
     s_t = fit.values["time_scale_s"] / 60.0
     s_l = fit.values["length_scale_um"]
@@ -800,6 +804,8 @@ def compare_analysis(
     ke_grid: Sequence[float] = RELAY_KE_GRID,
     cache_dir=None,
     use_cache: bool = True,
+    spiral_levels: int = SPIRAL_LEVELS,
+    converge: bool = True,
 ) -> Comparison:
     """Fit `model` to the analyses in `folders` (one folder or a sequence) and
     check which measured quantities it reproduces (module doc).
@@ -812,6 +818,11 @@ def compare_analysis(
     use only dispersion points with t_min in [lo, hi].  robust_scale: see
     `fit_scales`.  ke_grid: relay ke values (1/min) of the ke fit.
     cache_dir / use_cache: see `waves.dispersion.dispersion_curve`.
+    spiral_levels: grids of the spiral prediction (`waves.spirals`).  The
+    model curves are converged (`waves.dispersion.dispersion_curve`), their
+    grids and convergence estimate are in `numerics` and the checks;
+    converge=False uses the one-grid curves at `spacing` and one spiral run
+    (the model as a simulation on that grid runs it, grid error included).
     """
     spec = get_model(model)
     tol = float(tolerance)
@@ -826,12 +837,12 @@ def compare_analysis(
     if spec.name == "relay":
         fit, mod, numerics, model_params, spiral_params = _fit_relay_model(
             P, V, params, spacing=spacing, ke_grid=ke_grid, robust_scale=robust_scale,
-            cache_dir=cache_dir, use_cache=use_cache, notes=notes, clusters=clusters)
+            cache_dir=cache_dir, use_cache=use_cache, notes=notes, clusters=clusters, converge=converge)
         spiral_spacing = 0.4 if spacing is None else spacing  # 40 um: a 2-D relay run of seconds
     else:
         fit, mod, numerics, model_params, spiral_params = _fit_scaled_model(
             spec, P, V, params, spacing=spacing, robust_scale=robust_scale, cache_dir=cache_dir,
-            use_cache=use_cache, clusters=clusters)
+            use_cache=use_cache, clusters=clusters, converge=converge)
         spiral_spacing = spacing
     notes.extend(fit.notes)
 
@@ -860,6 +871,7 @@ def compare_analysis(
     pred = None
     if spiral:
         pred = spiral_prediction(spec.name, params=spiral_params, spacing=spiral_spacing,
+                                 levels=spiral_levels if converge else 1,
                                  cache_dir=cache_dir, use_cache=use_cache)
     for k, (folder, med) in enumerate(zip(measured.folders, measured.medians, strict=True)):
         name = str(folder)
@@ -1028,6 +1040,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--ke-grid", type=float, nargs="+", metavar="KE",
                         help="relay: ke values (1/min) of the curves for the ke fit")
     parser.add_argument("--no-spiral", action="store_true", help="skip the 2-D spiral prediction")
+    parser.add_argument("--no-converge", action="store_true",
+                        help="use the model on the --spacing grid alone, grid error included (as a simulation "
+                             "on that grid runs), instead of extrapolating to a converged prediction")
     parser.add_argument("--cache-dir", metavar="DIR",
                         help="cache of model curves (default $WAVES_CACHE_DIR or ~/.cache/waves)")
     parser.add_argument("--no-cache", action="store_true", help="neither read nor write the cache")
@@ -1044,7 +1059,7 @@ def run_from_args(args: argparse.Namespace) -> int:
         spiral=not args.no_spiral, tolerance=args.tolerance,
         t_range_min=tuple(args.t_range) if args.t_range else None, robust_scale=robust,
         ke_grid=tuple(args.ke_grid) if args.ke_grid else RELAY_KE_GRID,
-        cache_dir=args.cache_dir, use_cache=not args.no_cache,
+        cache_dir=args.cache_dir, use_cache=not args.no_cache, converge=not args.no_converge,
     )
     paths = write_comparison(comp, args.out)
     if not args.quiet:
