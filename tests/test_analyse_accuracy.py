@@ -107,3 +107,48 @@ def test_dispersion_points_match_the_truth_point_by_point(field):
     assert np.abs(period_err).max() < worst
     assert abs(np.median(speed_err)) < 0.005  # a 1 % speed bias fails
     assert np.median(np.abs(period_err)) < 0.002  # a 0.5 % period bias fails
+
+
+# ----------------------------------------------------------------- cleaning steps that must matter
+
+
+@pytest.mark.parametrize("flatten", [True, False])
+def test_illumination_flattening_keeps_a_dim_core(flatten):
+    # the light falls off linearly from 1 on the left to 0.2 on the right (a gain
+    # applied here, so its truth is known); the spiral's core sits in the dim part.
+    # Flattened, the whole field carries a signal and the core is found where it is;
+    # without flattening the dim third drops below the amplitude floor (measured
+    # signal fraction 0.63) and the core is lost, so the same check must fail.
+    m = _movie([S.SpiralSource(1400.0, 1000.0, PERIOD)], style=DarkfieldStyle(illumination=0.0, noise=0.01))
+    gain = np.linspace(1.0, 0.2, m.data.shape[2], dtype=np.float32)
+    dim = m.data.astype(np.float32) * gain
+    s = analyse_movie(dim, calibration=m.calibration, options=AnalysisOptions(flatten=flatten)).summary
+    cores = s["spiral_cores"]
+    # achieved with flattening: signal fraction 1.0, core 7.1 um off (see test_analyse.CORE_TOL_UM)
+    ok = (s["analysis"]["signal_fraction"] > 0.95 and len(cores) == 1
+          and np.hypot(cores[0]["x_um"] - 1400.0, cores[0]["y_um"] - 1000.0) < 12.0)
+    assert ok == flatten
+
+
+@pytest.mark.parametrize("detrend", [True, False])
+def test_detrending_removes_a_slow_baseline_drift(detrend, monkeypatch):
+    # the whole field's level swings +-40 % with a 40-min period (render baseline
+    # drift), slower than the period band; the band-pass's low cut removes it.  With
+    # the low cut switched off here (only the mean removed), the drift takes over the
+    # phase (measured: period 23 min, no speed) and the same check must fail.
+    if not detrend:
+        analytic = analyse_module.analytic_signal
+
+        def no_low_cut(x, *, passband, workers):
+            return analytic(x, passband=(1e-9, passband[1]), workers=workers)
+
+        monkeypatch.setattr(analyse_module, "analytic_signal", no_low_cut)
+    m = _movie([S.SpiralSource(1000.0, 1000.0, PERIOD)],
+               style=DarkfieldStyle(drift=0.4, drift_period_frames=120, noise=0.01))
+    a = analyse_movie(m.data, calibration=m.calibration)
+    s = a.summary
+    # closed-form truth; achieved with detrending: period 0.022 %, speed 0.011 %
+    per_ok = abs(s["period_min"]["median"] / PERIOD - 1) < 0.002
+    sp = s["front_speed_um_per_min"]
+    speed_ok = sp is not None and abs(sp["median"] / _median_truth(a, _spiral_front_speed(a, 1000.0, 1000.0)) - 1) < 0.005
+    assert (per_ok and speed_ok) == detrend

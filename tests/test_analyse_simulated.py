@@ -1,7 +1,8 @@
 """The analyser on simulator output: the period it measures on a rendered,
-noisy movie equals the period from threshold crossings on the clean field
-(the simulator's truth, waves.simulate) within 2 %, and it finds the spiral
-core with the rotation the simulation was started with."""
+noisy movie after the start-up transient equals the period from threshold
+crossings on the clean field (the simulator's truth, waves.simulate, an
+independent measurement) within 0.1 %, and it finds the spiral core with the
+rotation the simulation was started with."""
 
 import numpy as np
 import pytest
@@ -28,7 +29,10 @@ def test_barkley_spiral_period_and_core(rotation):
     # like with like: the simulator measures after its start-up transient
     late = [row["period_min"] for row in s["period_timecourse"] if row["t_min"] > run.truth["transient_min"]]
     assert len(late) >= 3
-    assert np.median(late) == pytest.approx(truth_period, rel=0.02)
+    # achieved 0.022 % (clockwise) and 0.020 % (counterclockwise); a 0.5 % bias fails
+    assert np.median(late) == pytest.approx(truth_period, rel=0.001)
+    # the whole-movie period includes the start-up transient, which the truth leaves
+    # out (+1.76 % measured): a sanity bound, not an accuracy check
     assert s["period_min"]["median"] == pytest.approx(truth_period, rel=0.05)
     rotations = {c["rotation"] for c in s["spiral_cores"]}
     assert rotations == {rotation}
