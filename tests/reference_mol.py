@@ -221,7 +221,7 @@ def barkley_train(length: float, h: float, *, rotations: int = 12) -> tuple[floa
                       refractory_fraction=0.05)
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def barkley_trains(lengths: tuple, spacings: tuple = (0.1, 0.05)) -> tuple[np.ndarray, np.ndarray]:
     """(period, speed) of Barkley ring trains, Richardson-extrapolated over `spacings`."""
     out = []
@@ -232,7 +232,7 @@ def barkley_trains(lengths: tuple, spacings: tuple = (0.1, 0.05)) -> tuple[np.nd
     return np.asarray(lengths) / speed, speed
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def relay_trains(lengths: tuple, spacings: tuple = (0.2, 0.1), ke: float = 10.0) -> tuple[np.ndarray, np.ndarray]:
     """(period, speed) of relay ring trains (model units: minutes, 100 um), Richardson over `spacings`."""
     out = []

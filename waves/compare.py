@@ -68,9 +68,9 @@ import numpy as np
 
 from waves.cli_common import parse_settings
 from waves.dispersion import DispersionCurve, dispersion_curve
-from waves.spirals import SPIRAL_LEVELS, spiral_prediction
 from waves.errors import InputError, WavesError
 from waves.models import get_model
+from waves.spirals import SPIRAL_LEVELS, spiral_prediction
 
 __all__ = [
     "Measured",

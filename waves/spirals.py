@@ -23,8 +23,7 @@ import math
 import os
 from dataclasses import dataclass, field
 
-from waves.dispersion import (
-    ALGORITHM_VERSION,
+from waves.cable import (
     REFINE_RATIO,
     Numerics,
     _require_recovery,
@@ -32,6 +31,7 @@ from waves.dispersion import (
     resolve_numerics,
     richardson,
 )
+from waves.dispersion import ALGORITHM_VERSION
 from waves.dispersion_cache import cache_key, cache_path, cache_read, cache_write
 from waves.errors import WavesError
 from waves.models import get_model
