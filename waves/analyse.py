@@ -623,6 +623,19 @@ def _to_recorded(table: dict, *, factor: int, frame_offset: int, pos_cols=("row"
     return out
 
 
+def _smoothing_saw_signal(amp: np.ndarray, sigma_px: float) -> np.ndarray:
+    """Pixels whose smoothing kernel met no patch without signal: within
+    3 sigma the amplitude stays above half the pixel's own.  Next to an
+    obstacle or a dead patch the kernel averages the wave with nothing, which
+    bends the fronts (measured +2 to +11 % on speeds up to 150 um = 2.7
+    sigma from a dead disk); those speeds are dropped."""
+    if sigma_px <= 0.3:
+        return np.ones(amp.shape, dtype=bool)
+    size = 2 * int(math.ceil(3.0 * sigma_px)) + 1
+    low = scipy.ndimage.minimum_filter(amp, size=size, mode="nearest")
+    return low >= 0.5 * amp
+
+
 def _signal_without_empty_holes(amp, filled, options, core_tracks):
     strict = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=9)
     holes, n = scipy.ndimage.label(filled & ~strict)
@@ -657,7 +670,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
 
     # speeds only where the direction is steady and away from persistent cores
     wl_px = float(np.nanmedian(np.where(valid, maps.speed[0] * maps.period[0], np.nan)))
-    speed_ok = valid & (maps.coherence[0] >= options.min_coherence)
+    speed_ok = valid & (maps.coherence[0] >= options.min_coherence) & _smoothing_saw_signal(amp, sigma_px)
     per = persistent.tracks
     if len(per["track_id"]):
         rr, cc = np.mgrid[0:nyb, 0:nxb]
