@@ -10,6 +10,7 @@ check) and tight enough that a 0.5 % period bias, a 1 % speed bias or a
 import numpy as np
 import pytest
 import scipy.ndimage
+from synthetic_truth import median_truth, spiral_front_speed, window_truth
 
 from waves import synthetic as S
 from waves.analyse import AnalysisOptions, analyse_movie
@@ -50,32 +51,6 @@ NOISY = DarkfieldStyle(noise=0.03, illumination=0.3, texture=0.2, drift=0.1, dri
 CORE_TOL_UM = 12.0
 
 
-def _grid_xy(a):
-    """Recorded-image positions (um) of the analysis-grid pixels."""
-    g = a.summary["analysis"]["grid"]
-    ny, nx = a.maps["front_speed_um_per_min"].shape
-    rr, cc = np.mgrid[0:ny, 0:nx]
-    return cc * g["pixel_size_um"] + g["origin_x_um"], rr * g["pixel_size_um"] + g["origin_y_um"]
-
-
-def _spiral_front_speed(a, x0, y0, speed=SPEED, wavelength=WAVELENGTH):
-    """Exact local front speed of the synthetic spiral on the analysis grid.
-
-    phase = omega t - k r + q theta has |grad phase|^2 = k^2 + 1 / r^2, so the
-    fronts (lines of constant phase) move along their normal at
-    omega / |grad phase| = speed / sqrt(1 + 1 / (k r)^2): slower than the
-    radial speed near the core (waves.synthetic's closed form, derived here)."""
-    x, y = _grid_xy(a)
-    kr = 2 * np.pi / wavelength * np.hypot(x - x0, y - y0)
-    with np.errstate(divide="ignore"):
-        return speed / np.sqrt(1 + 1 / kr**2)
-
-
-def _median_truth(a, truth_map):
-    """Median of a truth map over the pixels where a speed is reported."""
-    return float(np.median(truth_map[np.isfinite(a.maps["front_speed_um_per_min"])]))
-
-
 @pytest.mark.parametrize("pulse_width", [0.5, 0.15])
 @pytest.mark.parametrize("charge", [1, -1])
 def test_single_spiral_period_speed_wavelength_core(pulse_width, charge):
@@ -84,7 +59,7 @@ def test_single_spiral_period_speed_wavelength_core(pulse_width, charge):
     s = a.summary
     # closed-form truth; achieved period error <= 0.060 %, speed <= 0.12 %, wavelength <= 0.09 %
     assert s["period_min"]["median"] == pytest.approx(PERIOD, rel=0.002)
-    front = _median_truth(a, _spiral_front_speed(a, 1000.0, 1000.0))
+    front = median_truth(a, spiral_front_speed(a, 1000.0, 1000.0, SPEED, WAVELENGTH))
     assert s["front_speed_um_per_min"]["median"] == pytest.approx(front, rel=0.005)
     assert s["wavelength_um"]["median"] == pytest.approx(front * PERIOD, rel=0.005)
     cores = s["spiral_cores"]
@@ -139,45 +114,6 @@ def test_planar_wave_exact_speed_and_direction(defaults):
     assert np.nanmedian(np.abs(((d - 30.0) + 180) % 360 - 180)) < 0.02
 
 
-def _emitted_phase(truth, index, t_lo, t_hi, step=1e-3):
-    """(t, Phi): the phase 2 pi int dt / T(t) a source emits, by the trapezoid
-    rule on a fine grid from the source's period law (not its closed form)."""
-    t = np.arange(t_lo, t_hi + step, step)
-    f = 1.0 / truth.period_at(index, t)
-    return t, 2 * np.pi * np.concatenate([[0.0], np.cumsum(0.5 * (f[1:] + f[:-1]) * step)])
-
-
-def _whole_cycle_period(t, phi, delay_min, ta, tb):
-    """Exact mean period of the whole cycles between times ta and tb at pixels
-    whose phase is Phi(t - delay): from the first crossing of the next 2 pi
-    level to the last crossing of the highest one (the definition of the
-    windowed period, waves.measure.period), NaN below two cycles."""
-    p0 = np.interp(ta - delay_min, t, phi)
-    n = np.floor((np.interp(tb - delay_min, t, phi) - p0) / (2 * np.pi))
-    t1 = np.interp(p0 + 2 * np.pi, phi, t)
-    t2 = np.interp(p0 + 2 * np.pi * n, phi, t)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(n >= 2, (t2 - t1) / (n - 1), np.nan)
-
-
-def _window_truth(a, movie, x0, y0, pixels):
-    """Per time window: the exact whole-cycle period at each of `pixels` (a
-    (y, x) bool map), for a single source at (x0, y0) um."""
-    an = a.summary["analysis"]
-    dt = movie.calibration.frame_interval_min
-    trim = an["trimmed_frames_each_end"]
-    win = int(round(an["window_min"] / dt))
-    x, y = _grid_xy(a)
-    delay = np.hypot(x - x0, y - y0)[pixels] / SPEED
-    t, phi = _emitted_phase(movie.truth, 0, -delay.max() - 1.0, movie.data.shape[0] * dt + 1.0)
-    out = []
-    for tc in an["window_centres_min"]:
-        w0 = int(round(tc / dt - trim - win / 2))
-        ta, tb = (trim + w0) * dt, (trim + w0 + win - 1) * dt
-        out.append(_whole_cycle_period(t, phi, delay, ta, tb))
-    return out
-
-
 def test_period_drift_followed_by_timecourse():
     # period falls linearly from 8 to 5 min over the movie (closed-form phase)
     src = S.TargetSource(1000.0, 1000.0, 8.0, period_end_min=5.0)
@@ -185,7 +121,7 @@ def test_period_drift_followed_by_timecourse():
     a = _analyse(m, period_band_min=(3.0, 15.0))
     course = a.summary["period_timecourse"]
     assert len(course) >= 5
-    truths = _window_truth(a, m, 1000.0, 1000.0, np.isfinite(a.maps["period_min"]))
+    truths = window_truth(a, m, 1000.0, 1000.0, np.isfinite(a.maps["period_min"]))
     for row, truth in zip(course, truths, strict=True):
         # truth: the whole-cycle period of each pixel in the window, from the source's
         # period law delayed by the travel time; achieved <= 0.86 % (first window, next
@@ -262,7 +198,7 @@ def test_delay_embedding_phase_agrees_with_hilbert():
     s = a.summary
     # closed-form truth; achieved: period 0.016 %, speed 0.04 %, core 6.6 um
     assert s["period_min"]["median"] == pytest.approx(PERIOD, rel=0.002)
-    front = _median_truth(a, _spiral_front_speed(a, 1000.0, 1000.0))
+    front = median_truth(a, spiral_front_speed(a, 1000.0, 1000.0, SPEED, WAVELENGTH))
     assert s["front_speed_um_per_min"]["median"] == pytest.approx(front, rel=0.005)
     (core,) = s["spiral_cores"]
     assert core["charge"] == 1 and np.hypot(core["x_um"] - 1000.0, core["y_um"] - 1000.0) < CORE_TOL_UM

@@ -9,12 +9,12 @@ bound from the issue is tighter (written beside each check).
 
 import numpy as np
 import pytest
+from synthetic_truth import grid_xy, median_truth, spiral_front_speed, window_truth
 
 import waves.analyse as analyse_module
 from waves import synthetic as S
 from waves.analyse import AnalysisOptions, analyse_movie
 from waves.render import DarkfieldStyle
-from test_analyse import _grid_xy, _median_truth, _spiral_front_speed, _window_truth
 
 PX_UM = 10.0
 DT_S = 20.0
@@ -53,8 +53,8 @@ def test_default_smoothing_leaves_speed_and_wavelength_unbiased(kind, correct, m
     s = a.summary
     assert s["analysis"]["smoothing_sigma_um"] > 40.0  # on: 55.6 um, a twelfth of the wavelength the first look finds
     truth = (np.full(a.maps["front_speed_um_per_min"].shape, SPEED) if kind == "target"
-             else _spiral_front_speed(a, 1000.0, 1000.0))
-    front = _median_truth(a, truth)
+             else spiral_front_speed(a, 1000.0, 1000.0, SPEED, SPEED * PERIOD))
+    front = median_truth(a, truth)
     ratio = a.maps["front_speed_um_per_min"] / truth
     speed_err = s["front_speed_um_per_min"]["median"] / front - 1
     wl_err = s["wavelength_um"]["median"] / (front * PERIOD) - 1
@@ -97,7 +97,7 @@ def test_dispersion_points_match_the_truth_point_by_point(field):
     assert len(d["window"]) >= 9 * len(a.summary["analysis"]["window_centres_min"]) // 2
     speed_ok = np.isfinite(a.maps["front_speed_um_per_min"])
     regions = _region_map(speed_ok.shape)
-    truths = _window_truth(a, m, src.x_um, src.y_um, speed_ok)
+    truths = window_truth(a, m, src.x_um, src.y_um, speed_ok)
     reg_of = regions[speed_ok]
     speed_err = d["speed_um_per_min"] / SPEED - 1
     period_err = np.array([
@@ -155,7 +155,7 @@ def test_detrending_removes_a_slow_baseline_drift(detrend, monkeypatch):
     # closed-form truth; achieved with detrending: period 0.022 %, speed 0.011 %
     per_ok = abs(s["period_min"]["median"] / PERIOD - 1) < 0.002
     sp = s["front_speed_um_per_min"]
-    speed_ok = sp is not None and abs(sp["median"] / _median_truth(a, _spiral_front_speed(a, 1000.0, 1000.0)) - 1) < 0.005
+    speed_ok = sp is not None and abs(sp["median"] / median_truth(a, spiral_front_speed(a, 1000.0, 1000.0, SPEED, SPEED * PERIOD)) - 1) < 0.005
     assert (per_ok and speed_ok) == detrend
 
 
@@ -176,7 +176,7 @@ def test_speeds_next_to_a_dead_patch_are_dropped_or_right(guard, monkeypatch):
     data[:, dead] = float(np.median(data)) + rng.normal(0, 1, size=(data.shape[0], int(dead.sum())))
     a = analyse_movie(data, calibration=m.calibration)
     sp = a.maps["front_speed_um_per_min"]
-    x, y = _grid_xy(a)
+    x, y = grid_xy(a)
     rim = np.hypot(y - 1000.0, x - 1400.0) - 250.0  # um from the dead disk's rim
     near = np.isfinite(sp) & (rim >= 0) & (rim < 250.0)
     err = np.abs(sp[near] / SPEED - 1)
