@@ -232,6 +232,24 @@ def barkley_trains(lengths: tuple, spacings: tuple = (0.1, 0.05)) -> tuple[np.nd
     return np.asarray(lengths) / speed, speed
 
 
+def fhn_train(length: float, h: float, *, rotations: int = 12) -> tuple[float, float]:
+    """(period, spread) of one FitzHugh-Nagumo pulse on a ring; refractory: v = 1."""
+    rest = fhn_rest(FHN)
+    return ring_train(fhn_reaction(FHN), rest, (2.0, rest[1]), (rest[0], 1.0), h=h, length=length, D=1.0,
+                      threshold=0.0, period_guess=length / 2.0, rotations=rotations, refractory_fraction=0.3)
+
+
+@functools.cache
+def fhn_trains(lengths: tuple, spacings: tuple = (0.25, 0.125)) -> tuple[np.ndarray, np.ndarray]:
+    """(period, speed) of FHN ring trains, Richardson-extrapolated over `spacings`."""
+    out = []
+    for L in lengths:
+        c = [L / fhn_train(L, hh)[0] for hh in spacings]
+        out.append(richardson(c[0], c[1], spacings[0] / spacings[1]))
+    speed = np.array(out)
+    return np.asarray(lengths) / speed, speed
+
+
 @functools.cache
 def relay_trains(lengths: tuple, spacings: tuple = (0.2, 0.1), ke: float = 10.0) -> tuple[np.ndarray, np.ndarray]:
     """(period, speed) of relay ring trains (model units: minutes, 100 um), Richardson over `spacings`."""

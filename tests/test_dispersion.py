@@ -190,7 +190,7 @@ def test_relay_spiral_period():
     # [computed, regression value]: Table 2 with ke = 10 /min on a 40 um grid, one grid: a spiral
     # turns every 7.7 min (waves.models.relay docstring); time is in minutes in this model
     pred = wd.spiral_prediction("relay", params={"ke_per_min": 10.0}, spacing=0.4, levels=1, use_cache=False)
-    assert pred.period == pytest.approx(7.7, rel=0.03)
+    assert pred.period == pytest.approx(7.7, rel=0.01)  # achieved 0.3 % (7.724)
     assert pred.n_cores == 1
     # it turns slower than the fastest train the ring carries (a spiral cannot beat the medium's
     # refractoriness), Keener & Sneyd [memory]

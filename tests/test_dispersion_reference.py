@@ -4,9 +4,10 @@ Truth: tests/reference_mol.py, a 1-D method-of-lines solution with scipy's
 solve_ivp (BDF, sparse Jacobian pattern, rtol 1e-7) of the published
 equations typed afresh (no waves kernel, integrator or parameter code),
 Richardson-extrapolated over two spacings to h -> 0.  Its own convergence:
-Barkley cable speed 4.520504 from h = 0.1/0.05 and 4.520508 from 0.05/0.025;
-FHN 1.946632 (0.25/0.125) and 1.946624 (0.125/0.0625); relay trains change by
-0.014 % between h = 0.2 and 0.1 [all computed here].
+Barkley cable speed 4.520504 from h = 0.1/0.05 and 4.520508 from 0.05/0.025,
+a ring of 17 units 4.012028 and 4.012027; FHN 1.946632 (0.25/0.125) and
+1.946624 (0.125/0.0625); relay trains change by 0.014 % between h = 0.2 and
+0.1, FHN trains by 0.2-0.4 % between 0.25 and 0.125 [all computed here].
 
 Each tolerance is 3-5x the agreement achieved (in the comment beside it) and
 at most 0.5 %, so a 2 % error in any prediction fails; the default-grid
@@ -71,3 +72,17 @@ def test_relay_dispersion_curve_matches_mol_ring_trains(tmp_path):
     assert curve.convergence_rel <= wd.DEFAULT_RTOL
     raw = wd.dispersion_curve("relay", params={"ke_per_min": 10.0}, converge=False, cache_dir=tmp_path)
     assert np.all(raw.speed_at(P) / V - 1 < -0.005)  # the 20 um grid alone: 0.6-0.7 % slow
+
+
+@pytest.mark.slow
+def test_fhn_dispersion_curve_matches_mol_ring_trains(tmp_path):
+    # eps = 0.3, beta = 0.7, gamma = 0.5: oscillatory recovery, so the relation is not monotone
+    # (the ring of 25 units runs 8 % faster than a lone pulse, the one of 30 slower) [MOL reference]
+    P, V = ref.fhn_trains((20.0, 25.0, 40.0))  # periods 10.57, 11.89, 20.46
+    curve = wd.dispersion_curve("fhn", cache_dir=tmp_path)
+    assert V[1] > 1.05 * curve.solitary_speed  # the supernormal train, seen by both methods
+    # achieved 0.02 %, 0.21 %, 0.39 % (the last between rings 2.6 periods apart, where the curve
+    # oscillates: interpolation, not grid error); tolerance 1 %
+    np.testing.assert_allclose(curve.speed_at(P), V, rtol=0.01)
+    raw = wd.dispersion_curve("fhn", converge=False, cache_dir=tmp_path)
+    assert np.all(raw.speed_at(P) / V - 1 < -0.05)  # h = 0.5 alone: 5.6-5.9 % slow
