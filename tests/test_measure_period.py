@@ -27,7 +27,8 @@ def test_cycle_period_of_sinusoid_like_and_narrow_pulses(kappa):
     z = analytic_signal(_pulses(400, periods, kappa=kappa))
     trim = 35  # about one longest period at each end (filter-edge transients)
     got = period_from_cycles(phase_advance(z)[trim:-trim])
-    np.testing.assert_allclose(got, periods, rtol=0.01)
+    # achieved 0.048 % / 0.13 % / 0.17 % (kappa 0.5 / 8 / 30)
+    np.testing.assert_allclose(got, periods, rtol=0.006)
 
 
 def test_mean_advance_period_and_validity_mask():
@@ -35,7 +36,7 @@ def test_mean_advance_period_and_validity_mask():
     periods = np.array([12.0, 25.0])
     z = analytic_signal(_pulses(300, periods, kappa=0.1))
     adv = phase_advance(z)[30:-30]
-    np.testing.assert_allclose(period_from_advance(adv), periods, rtol=0.01)
+    np.testing.assert_allclose(period_from_advance(adv), periods, rtol=0.003)  # achieved 0.069 %
     valid = np.zeros(adv.shape, dtype=bool)
     valid[:, 0] = True
     got = period_from_advance(adv, valid=valid)
@@ -48,7 +49,8 @@ def test_spectral_period_prefers_fundamental_over_harmonic():
     periods = np.array([20.0, 12.5])
     x = _pulses(500, periods, kappa=40.0)
     got = spectral_period(x, passband=(1 / 60, 1 / 3))
-    np.testing.assert_allclose(got, periods, rtol=0.01)
+    # both periods fall on frequency bins: achieved exact; the neighbouring bins are 4-8 % off
+    np.testing.assert_allclose(got, periods, rtol=1e-3)
 
 
 def test_windowed_period_follows_a_drifting_period():
@@ -61,7 +63,7 @@ def test_windowed_period_follows_a_drifting_period():
     centres, per = windowed_period(adv, window_frames=80, step_frames=40)
     inner = (centres > 60) & (centres < n - 60)
     truth = t0_frames + slope * centres[inner]
-    np.testing.assert_allclose(per[inner, 0], truth, rtol=0.03)
+    np.testing.assert_allclose(per[inner, 0], truth, rtol=0.004)  # achieved 0.098 %
 
 
 def test_quartiles_of_finite_values():
