@@ -102,6 +102,18 @@ def test_cache_key_holds_the_convergence_settings(tmp_path):
         wd.dispersion_curve("barkley", rtol=2.0, use_cache=False)
 
 
+def test_too_few_grids_are_reported_as_not_converged(tmp_path):
+    # two grids give one extrapolation: its difference from the finer grid (the Richardson
+    # correction, 1.8 % for Barkley at h = 0.177) is the estimate, above the 0.3 % default
+    two = wd.converged_solitary_speed("barkley", max_levels=2)
+    assert len(two.spacings) == 2 and not two.converged
+    assert two.convergence_rel == pytest.approx(abs(two.speed - two.speeds[-1]) / two.speed, rel=1e-12)
+    curve = wd.dispersion_curve("barkley", max_levels=2, cache_dir=tmp_path)
+    assert curve.converged is False and any("not converged" in n for n in curve.notes)
+    with pytest.raises(WavesError, match="max_levels"):
+        wd.converged_solitary_speed("barkley", max_levels=1)
+
+
 def test_richardson_removes_a_second_order_error():
     # X(h) = 3 + 5 h^2: exact extrapolation from h and h / sqrt(2) (construction)
     assert wd.richardson(3 + 5 * 0.04, 3 + 5 * 0.02) == pytest.approx(3.0, rel=1e-12)

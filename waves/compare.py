@@ -476,6 +476,10 @@ def compare_analysis(
                                   "so the model spiral is shown, not tested")
             sp_p = None if pred.period is None else pred.period * mod.s_t_min
             sp_wl = None if pred.wavelength is None else pred.wavelength * mod.s_l_um
+            if pred.convergence_rel is not None:
+                why = (why + "; " if why else "") + (
+                    f"model period extrapolated over {len(pred.spacings)} grids, converged to "
+                    f"{pred.convergence_rel:.2%}")
             checks.append(_check("spiral period (min)", name, p_med, sp_p, tol, why, applicable=has))
             checks.append(_check("spiral wavelength (um)", name, wl_med, sp_wl, tol, why, applicable=has))
     spiral_out = None
