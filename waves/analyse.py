@@ -636,6 +636,22 @@ def _smoothing_saw_signal(amp: np.ndarray, sigma_px: float) -> np.ndarray:
     return low >= 0.5 * amp
 
 
+def _inside_one_territory(labels: np.ndarray, sigma_px: float) -> np.ndarray:
+    """Pixels whose smoothing kernel (3 sigma) lies in one centre's
+    territory (labels > 0; unassigned 0 ignored).  On a territory boundary
+    the fronts of two sources meet at an angle and the smoothing averages
+    them: the phase gradient shrinks and the speed comes out high (measured
+    +4 to +6 % within 2 sigma of an oblique collision line of two targets).
+    """
+    if sigma_px <= 0.3:
+        return np.ones(labels.shape, dtype=bool)
+    size = 2 * int(math.ceil(3.0 * sigma_px)) + 1
+    lab = np.asarray(labels, dtype=np.int64)
+    hi = scipy.ndimage.maximum_filter(lab, size=size, mode="nearest")
+    lo = scipy.ndimage.minimum_filter(np.where(lab > 0, lab, np.iinfo(np.int64).max), size=size, mode="nearest")
+    return (hi == 0) | (lo == hi)
+
+
 def _signal_without_empty_holes(amp, filled, options, core_tracks):
     strict = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=9)
     holes, n = scipy.ndimage.label(filled & ~strict)
@@ -689,6 +705,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         cores_cols=per["mean_col"],
         cores_ids=per["track_id"],
     )
+    speed_ok &= _inside_one_territory(cs.labels, sigma_px)
 
     to_um_per_min = px_b / dt_min
     period_map = np.where(valid, maps.period[0] * dt_min, np.nan).astype(np.float32)
@@ -709,7 +726,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         q = quartiles(pw * dt_min)
         if q is not None:
             course.append({"t_min": float(t_mid), "period_min": q["median"], "q25": q["q25"], "q75": q["q75"]})
-        ok = speed_ok & (maps.coherence[i + 1] >= options.min_coherence) & np.isfinite(pw) & np.isfinite(maps.speed[i + 1])
+        ok = (speed_ok & (maps.coherence[i + 1] >= options.min_coherence) & np.isfinite(pw)
+              & np.isfinite(maps.speed[i + 1]) & _inside_one_territory(cs.window_labels[i], sigma_px))
         for g in range(nreg * nreg):
             m = ok & (region == g)
             if m.sum() < 10:
