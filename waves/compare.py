@@ -53,6 +53,18 @@ n - p degrees of freedom.  Neither holds a bias of the measurement itself
 A scale whose interval spans more
 than a factor 2 is reported as not constrained (all periods where the curve
 is flat, for instance, determine only s_l / s_t).
+
+Model numerics.  The model curves and the spiral period are converged in
+the grid (`waves.dispersion`: grids --spacing, --spacing / sqrt(2), ...,
+Richardson-extrapolated until successive estimates agree to 0.3 %); the
+grids and the convergence estimate are in the JSON ('numerics':
+spacings_model, convergence_rel, shortest_period_convergence_rel;
+'model_spiral': spacings_model, convergence_rel), in the table
+(model_convergence_rel) and in the checks (a row for the curve, counted as
+converged within 0.5 %; the spiral period row's note).  --no-converge uses
+the one-grid model at --spacing instead, grid error included, which is what
+a stack simulated on that grid obeys.  The fits themselves are in
+`waves.compare_fit`, the files and figure in `waves.compare_output`.
 """
 
 from __future__ import annotations
