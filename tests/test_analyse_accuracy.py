@@ -211,3 +211,35 @@ def test_speeds_next_to_a_collision_line_are_dropped(guard, monkeypatch):
           and len(speed_err) > 0 and speed_err.max() < 0.03)
     assert ok == guard
     assert np.abs(d["period_min"] / PERIOD - 1).max() < 0.01
+
+
+def test_bundled_synthetic_sample_front_speed():
+    # the README's quick-start movie (samples/synthetic_spiral_target.tif): a spiral and
+    # a target pacemaker at 320 um/min.  Truth from its sidecar: the spiral's exact normal
+    # front speed in its territory, 320 um/min in the target's (last-frame territories:
+    # the spiral takes over, and the pixels that change hands lie far from its core)
+    import json
+    import pathlib
+
+    from waves import io
+    from waves.units import Calibration
+
+    folder = pathlib.Path(__file__).resolve().parent.parent / "samples"
+    side = json.loads((folder / "synthetic_spiral_target.truth.json").read_text())
+    st = io.read_stack(folder / "synthetic_spiral_target.tif")
+    cal = Calibration(side["pixel_size_um"], side["frame_interval_s"], "simulation", "simulation")
+    a = analyse_movie(st.data, calibration=cal)
+    spiral = next(s for s in side["sources"] if s["kind"] == "spiral")
+    speed = side["speed_um_per_min"]
+    truth = spiral_front_speed(a, spiral["x_um"], spiral["y_um"], speed, spiral["wavelength_um"])
+    labels = np.array([[int(ch) for ch in row] for row in side["territory_labels_last"]])
+    g = a.summary["analysis"]["grid"]
+    ny, nx = truth.shape
+    rr, cc = np.mgrid[0:ny, 0:nx]
+    r0 = np.minimum(rr * g["bin"] + (g["bin"] - 1) // 2, labels.shape[0] - 1)  # recorded pixel at the bin centre
+    c0 = np.minimum(cc * g["bin"] + (g["bin"] - 1) // 2, labels.shape[1] - 1)
+    truth = np.where(labels[r0, c0] == spiral["index"], truth, speed)
+    err = a.summary["front_speed_um_per_min"]["median"] / median_truth(a, truth) - 1
+    # achieved -0.19 % (per-pixel median +0.06 %); before the smoothing bias was removed the
+    # median was 358 um/min against 312.5
+    assert abs(err) < 0.005
