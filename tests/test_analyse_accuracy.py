@@ -39,10 +39,11 @@ def _no_curvature_correction(monkeypatch):
 @pytest.mark.parametrize("correct", [True, False])
 @pytest.mark.parametrize("kind", ["target", "spiral"])
 def test_default_smoothing_leaves_speed_and_wavelength_unbiased(kind, correct, monkeypatch):
-    # Default options (smoothing sigma = wavelength / 12) on an exact field.  The
-    # smoothing flattens the phase of curved fronts by sigma^2 / (2 r^2) (measured:
-    # +1.9 % target, +1.0 % spiral before the correction); the analyser corrects it.
-    # With the correction switched off here, the same check must fail.
+    # Default options (smoothing sigma = wavelength / 12) on an exact field.  Issue 11
+    # measured +1.9 % (target) and +1.0 % (spiral) here: a reflected kernel bent the
+    # fronts at the frame edges (now cut symmetrically, preprocess.smooth_space), and
+    # smoothing shortens the wave vector of curved fronts by sigma^2 / (2 r^2), which
+    # the analyser corrects.  With the correction switched off here the check must fail.
     if not correct:
         _no_curvature_correction(monkeypatch)
     if kind == "target":
@@ -67,8 +68,9 @@ def test_default_smoothing_leaves_speed_and_wavelength_unbiased(kind, correct, m
     # activation-fit speed (Bayly et al. 1998) gets the same correction: achieved +0.14 % /
     # -0.17 % (uncorrected +0.71 % / +0.20 %).
     ok = abs(speed_err) < 0.005 and abs(wl_err) < 0.005 and abs(pixel_err) < 0.005
-    assert (abs(fit_err) < 0.005) == (correct or kind == "spiral")
     assert ok == correct
+    if correct:
+        assert abs(fit_err) < 0.005
 
 
 # ----------------------------------------------------------------- dispersion points
@@ -104,14 +106,16 @@ def test_dispersion_points_match_the_truth_point_by_point(field):
         d["period_min"][i] / np.nanmedian(truths[d["window"][i]][reg_of == d["region"][i]]) - 1
         for i in range(len(d["window"]))
     ])
-    # achieved, steady / drifting: speed worst 0.47 % / 1.33 % (the first window, next to the
-    # filter edge; <= 0.7 % in the others), median |error| 0.14 % / 0.28 %, median +0.14 % /
-    # +0.12 %; period worst 0.29 % / 1.0 %, median |error| 0.06 % / 0.04 %
+    # achieved, steady / drifting: speed worst 0.47 % / 1.33 % (both in the first window,
+    # next to the filter edge; 0.28 % / 0.70 % in the others), median |error| 0.14 % /
+    # 0.28 %, median +0.14 % / +0.12 %; period worst 0.29 % / 1.0 %, median |error|
+    # 0.06 % / 0.04 %.  Worst-point bounds are 2-3x; the medians catch a 1 % speed or a
+    # 0.5 % period bias.
     worst = {"steady": 0.015, "drifting": 0.03}[field]
     assert np.abs(speed_err).max() < worst
     assert np.abs(period_err).max() < worst
-    assert abs(np.median(speed_err)) < 0.005  # a 1 % speed bias fails
-    assert np.median(np.abs(period_err)) < 0.002  # a 0.5 % period bias fails
+    assert abs(np.median(speed_err)) < 0.005
+    assert np.median(np.abs(period_err)) < 0.002
 
 
 # ----------------------------------------------------------------- cleaning steps that must matter
