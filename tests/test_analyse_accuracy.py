@@ -171,7 +171,7 @@ def test_speeds_next_to_a_dead_patch_are_dropped_or_right(guard, monkeypatch):
     # 150 um of its rim); such speeds must be dropped.  With the guard switched off
     # here the same check must fail.
     if not guard:
-        monkeypatch.setattr(analyse_module, "_smoothing_saw_signal", lambda amp, sigma_px: np.ones(amp.shape, bool))
+        monkeypatch.setattr(analyse_module, "kernel_saw_signal", lambda amp, sigma_px: np.ones(amp.shape, bool))
     m = _movie([S.TargetSource(500.0, 1000.0, PERIOD)])
     data = m.data.astype(np.float32)
     yy, xx = np.mgrid[0:200, 0:200]
@@ -204,7 +204,7 @@ def test_speeds_next_to_a_collision_line_are_dropped(guard, monkeypatch):
     # whose kernel reaches another territory must be dropped.  With that guard off here
     # the same check must fail.
     if not guard:
-        monkeypatch.setattr(analyse_module, "_inside_one_territory", lambda labels, sigma_px: np.ones(labels.shape, bool))
+        monkeypatch.setattr(analyse_module, "kernel_in_one_territory", lambda labels, sigma_px: np.ones(labels.shape, bool))
     m = _movie([S.TargetSource(600.0, 1000.0, PERIOD), S.TargetSource(1400.0, 1000.0, PERIOD, phase0=1.0)])
     a = analyse_movie(m.data, calibration=m.calibration)
     d = a.tables["dispersion"]

@@ -122,3 +122,22 @@ def test_smoothing_speed_correction_undoes_the_curvature_bias_of_a_smoothed_targ
     f2 = smoothing_speed_correction(kx, ky, var_row=var, var_col=var, smooth_px=2 * sigma)
     resid2 = k_smooth[ring] * f2[ring] / k_true[ring] - 1
     assert abs(np.median(resid2)) < 0.5 * np.median(bias)
+
+
+def test_kernel_guards_mark_pixels_within_three_sigma_of_a_dead_patch_or_another_territory():
+    # exact by construction: a square reach of ceil(3 sigma) pixels
+    from waves.measure.speed import kernel_in_one_territory, kernel_saw_signal
+
+    sigma = 2.0  # reach 6 px
+    amp = np.ones((40, 40))
+    amp[18:22, 18:22] = 0.1  # a dead patch, rows and columns 18-21
+    ok = kernel_saw_signal(amp, sigma_px=sigma)
+    rows_ok = ok[:, 20]  # the patch itself is left to the signal mask
+    assert not rows_ok[12:18].any() and not rows_ok[22:28].any() and rows_ok[:12].all() and rows_ok[28:].all()
+    assert kernel_saw_signal(amp, sigma_px=0.0).all()  # no smoothing, nothing to guard
+    labels = np.ones((30, 30), dtype=np.int32)
+    labels[:, 15:] = 2  # boundary between columns 14 and 15
+    labels[:, :3] = 0  # unassigned pixels do not count as another territory
+    inside = kernel_in_one_territory(labels, sigma_px=sigma)
+    cols_ok = inside[10]
+    assert not cols_ok[9:21].any() and cols_ok[:9].all() and cols_ok[21:].all()

@@ -49,7 +49,13 @@ from waves.errors import InputError, WavesError
 from waves.measure.centres import emission_intervals, track_centres
 from waves.measure.fused import pixel_measures
 from waves.measure.period import quartiles, spectral_period
-from waves.measure.speed import activation_fit_speed, activation_times, smoothing_speed_correction
+from waves.measure.speed import (
+    activation_fit_speed,
+    activation_times,
+    kernel_in_one_territory,
+    kernel_saw_signal,
+    smoothing_speed_correction,
+)
 from waves.phase import tracking
 from waves.phase.analytic import (
     analytic_signal,
@@ -623,35 +629,6 @@ def _to_recorded(table: dict, *, factor: int, frame_offset: int, pos_cols=("row"
     return out
 
 
-def _smoothing_saw_signal(amp: np.ndarray, sigma_px: float) -> np.ndarray:
-    """Pixels whose smoothing kernel met no patch without signal: within
-    3 sigma the amplitude stays above half the pixel's own.  Next to an
-    obstacle or a dead patch the kernel averages the wave with nothing, which
-    bends the fronts (measured +2 to +11 % on speeds up to 150 um = 2.7
-    sigma from a dead disk); those speeds are dropped."""
-    if sigma_px <= 0.3:
-        return np.ones(amp.shape, dtype=bool)
-    size = 2 * int(math.ceil(3.0 * sigma_px)) + 1
-    low = scipy.ndimage.minimum_filter(amp, size=size, mode="nearest")
-    return low >= 0.5 * amp
-
-
-def _inside_one_territory(labels: np.ndarray, sigma_px: float) -> np.ndarray:
-    """Pixels whose smoothing kernel (3 sigma) lies in one centre's
-    territory (labels > 0; unassigned 0 ignored).  On a territory boundary
-    the fronts of two sources meet at an angle and the smoothing averages
-    them: the phase gradient shrinks and the speed comes out high (measured
-    +4 to +6 % within 2 sigma of an oblique collision line of two targets).
-    """
-    if sigma_px <= 0.3:
-        return np.ones(labels.shape, dtype=bool)
-    size = 2 * int(math.ceil(3.0 * sigma_px)) + 1
-    lab = np.asarray(labels, dtype=np.int64)
-    hi = scipy.ndimage.maximum_filter(lab, size=size, mode="nearest")
-    lo = scipy.ndimage.minimum_filter(np.where(lab > 0, lab, np.iinfo(np.int64).max), size=size, mode="nearest")
-    return (hi == 0) | (lo == hi)
-
-
 def _signal_without_empty_holes(amp, filled, options, core_tracks):
     strict = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=9)
     holes, n = scipy.ndimage.label(filled & ~strict)
@@ -686,7 +663,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
 
     # speeds only where the direction is steady and away from persistent cores
     wl_px = float(np.nanmedian(np.where(valid, maps.speed[0] * maps.period[0], np.nan)))
-    speed_ok = valid & (maps.coherence[0] >= options.min_coherence) & _smoothing_saw_signal(amp, sigma_px)
+    # ... and where the smoothing kernel saw signal all round (no dead patch, no second territory)
+    speed_ok = valid & (maps.coherence[0] >= options.min_coherence) & kernel_saw_signal(amp, sigma_px=sigma_px)
     per = persistent.tracks
     if len(per["track_id"]):
         rr, cc = np.mgrid[0:nyb, 0:nxb]
@@ -705,7 +683,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         cores_cols=per["mean_col"],
         cores_ids=per["track_id"],
     )
-    speed_ok &= _inside_one_territory(cs.labels, sigma_px)
+    speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
 
     to_um_per_min = px_b / dt_min
     period_map = np.where(valid, maps.period[0] * dt_min, np.nan).astype(np.float32)
@@ -727,7 +705,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         if q is not None:
             course.append({"t_min": float(t_mid), "period_min": q["median"], "q25": q["q25"], "q75": q["q75"]})
         ok = (speed_ok & (maps.coherence[i + 1] >= options.min_coherence) & np.isfinite(pw)
-              & np.isfinite(maps.speed[i + 1]) & _inside_one_territory(cs.window_labels[i], sigma_px))
+              & np.isfinite(maps.speed[i + 1]) & kernel_in_one_territory(cs.window_labels[i], sigma_px=sigma_px))
         for g in range(nreg * nreg):
             m = ok & (region == g)
             if m.sum() < 10:

