@@ -27,6 +27,11 @@ with
 that the noise-free level stays inside (0, 1) of full scale; with the default
 style the brightest noise-free pixel sits at about 0.69 and the darkest at
 about 0.22 of full scale, so noise of a few sd does not clip.
+
+`Degradations` (from `waves.degrade`) describes what a real recording adds: cell
+texture, illumination fields, shot/read noise and bit depth, lamp fade and flicker,
+stage drift, dropped frames, streaming cells, dish edge and dust;
+`waves.synthetic.synthetic_recording` renders them with `waves.degrade_render`.
 """
 
 from __future__ import annotations
@@ -37,9 +42,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
+from waves.degrade import Degradations
 from waves.errors import WavesError
 
-__all__ = ["DarkfieldStyle", "DarkfieldRenderer", "FULL_SCALE"]
+__all__ = ["DarkfieldStyle", "DarkfieldRenderer", "Degradations", "FULL_SCALE"]
 
 FULL_SCALE: dict[str, int] = {"uint8": 255, "uint16": 65535}
 

@@ -112,7 +112,21 @@ __all__ = [
     "phase_field",
     "planar_wave",
     "synthetic_movie",
+    "synthetic_recording",
+    "Recording",
+    "RecordingTruth",
+    "write_recording",
 ]
+
+_RECORDING_NAMES = ("synthetic_recording", "Recording", "RecordingTruth", "write_recording")
+
+
+def __getattr__(name: str):  # PEP 562: the recording layer builds on this module
+    if name in _RECORDING_NAMES:
+        from waves import synthetic_recording as _rec
+
+        return getattr(_rec, name)
+    raise AttributeError(f"module 'waves.synthetic' has no attribute {name!r}")
 
 _TWO_PI = 2.0 * math.pi
 # elements (frames x pixels) evaluated at once; float64 temporaries of this
@@ -396,15 +410,18 @@ class _Evaluator:
         pixel_size_um: float,
         frame_interval_s: float,
         speed_um_per_min: float,
+        origin_px: tuple[int, int] = (0, 0),
     ) -> None:
+        # origin_px: grid pixel (r, c) sits at y_um = (r - origin_px[0]) * pixel_size_um
+        # (a padded canvas around the field; (0, 0) is the field itself)
         nt, ny, nx = shape_tyx
         self.shape_tyx = shape_tyx
         self.dt_min = frame_interval_s / 60.0
         last = (nt - 1) * self.dt_min
         self.laws = [_law_of(s, last) for s in sources]
         self.sources = sources
-        y = (np.arange(ny, dtype=np.float64) * pixel_size_um)[:, None]
-        x = (np.arange(nx, dtype=np.float64) * pixel_size_um)[None, :]
+        y = ((np.arange(ny, dtype=np.float64) - origin_px[0]) * pixel_size_um)[:, None]
+        x = ((np.arange(nx, dtype=np.float64) - origin_px[1]) * pixel_size_um)[None, :]
         self.y, self.x, self.speed = y, x, speed_um_per_min
         # moving cores and firing-time laws have no compiled path: numpy only
         self.numpy_only = any(moves(s) or isinstance(law, _FiringLaw)
