@@ -35,7 +35,9 @@ def rng_for(seed: int, tag: int) -> np.random.Generator:
 def texture_field(shape_yx: tuple[int, int], deg: Degradations, rng: np.random.Generator) -> np.ndarray:
     """Granular dark-field texture, mean 1, relative sd `texture_contrast`:
     Poisson-placed bright grains blurred by a Gaussian of sd `texture_grain_px`,
-    over a dimmer continuum (floored at 0.05)."""
+    over a dimmer continuum (floored at 0.05); the brightest grains are compressed
+    softly so that the texture stays below 1 + 3 * texture_contrast (relative sd then
+    slightly under texture_contrast)."""
     if deg.texture_contrast <= 0.0:
         return np.ones(shape_yx, dtype=np.float32)
     g = deg.texture_grain_px
@@ -46,6 +48,7 @@ def texture_field(shape_yx: tuple[int, int], deg: Degradations, rng: np.random.G
     sd = float(z.std())
     if sd > 0.0:
         z = (z - z.mean()) / sd
+    z = np.where(z > 2.0, 2.0 + np.tanh(z - 2.0), z)  # brightest grains saturate softly at z = 3
     out = 1.0 + deg.texture_contrast * z
     np.maximum(out, 0.05, out=out)
     return (out / out.mean()).astype(np.float32)
