@@ -29,8 +29,17 @@ from scipy import ndimage
 
 from waves.degrade import Degradations
 from waves.degrade_fields import (
-    dust_field, drift_path, flicker_set, frame_schedule, illumination_field, lamp_gain,
-    mound_profiles, presence_and_rim, rng_for, stream_offset_px, texture_field,
+    drift_path,
+    dust_field,
+    flicker_set,
+    frame_schedule,
+    illumination_field,
+    lamp_gain,
+    mound_profiles,
+    presence_and_rim,
+    rng_for,
+    stream_offset_px,
+    texture_field,
 )
 from waves.errors import WavesError
 

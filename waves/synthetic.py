@@ -112,16 +112,15 @@ __all__ = [
     "phase_field",
     "planar_wave",
     "synthetic_movie",
-    "synthetic_recording",
-    "Recording",
-    "RecordingTruth",
-    "write_recording",
 ]
+
+# Degraded recordings (waves.synthetic_recording builds on this module) are reachable
+# here too: `from waves.synthetic import synthetic_recording, Recording`.
 
 _RECORDING_NAMES = ("synthetic_recording", "Recording", "RecordingTruth", "write_recording")
 
 
-def __getattr__(name: str):  # PEP 562: the recording layer builds on this module
+def __getattr__(name: str):  # PEP 562: imported on first use, so no import cycle
     if name in _RECORDING_NAMES:
         from waves import synthetic_recording as _rec
 
