@@ -93,7 +93,12 @@ def _tifffile_log() -> Iterator[list[str]]:
 
 
 def _damage_messages(records: list[str]) -> list[str]:
-    return [r for r in records if any(h in r.lower() for h in _DAMAGE_HINTS)]
+    # a Micro-Manager header tifffile cannot parse is metadata only (per-page
+    # Micro-Manager tags without the file header): not damage of the images
+    return [
+        r for r in records
+        if any(h in r.lower() for h in _DAMAGE_HINTS) and "micromanager" not in r.lower()
+    ]
 
 
 def _damaged(path: str, detail: str) -> InputError:
@@ -257,6 +262,9 @@ class _Layout:
     dt: tuple[float | None, str | None] = (None, None)  # (frame interval s, problem)
     cal_origin: str | None = None
     extra: dict = field(default_factory=dict)
+    # per-frame times of the file (s, frame 0 at 0) when it records them
+    times_s: np.ndarray | None = field(default=None, compare=False)
+    times_origin: str = "nominal"
 
 
 def _nonfinite_frames(block: np.ndarray) -> np.ndarray:

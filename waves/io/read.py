@@ -34,6 +34,7 @@ from waves.io.common import (
 from waves.io.records import Stack, StackInfo
 from waves.io.sequence import _read_sequence_frames, _sequence_layout
 from waves.io.tiff import _file_frames, _file_layout, _memmap
+from waves.io.timestamps import csv_times, irregular_note, nominal_step_s
 from waves.preprocess import bin_frames
 from waves.units import Calibration, resolve_calibration
 
@@ -140,11 +141,44 @@ def _scan_nonfinite(layout: _Layout, src: np.ndarray | None, t_idx: np.ndarray) 
     return bad
 
 
+def _times(
+    layout: _Layout, frame_interval_s: float | None, times_csv: Any
+) -> tuple[np.ndarray | None, str, float | None, list[str]]:
+    """(times_s of the file or None, origin, frame interval option, notes)."""
+    notes: list[str] = []
+    if times_csv is not None:
+        times = csv_times(times_csv, layout.n_frames)
+        step = nominal_step_s(times)
+        if frame_interval_s is None:
+            frame_interval_s = step
+        elif abs(frame_interval_s - step) > 0.05 * step:
+            notes.append(
+                f"the frame interval given ({frame_interval_s:g} s) differs from the median step "
+                f"of the times file ({step:g} s) by more than 5 %; the times file is used for "
+                "the time of each frame"
+            )
+        note = irregular_note(times, frame_interval_s, "csv")
+        if note:
+            notes.append(note)
+        return times, "csv", frame_interval_s, notes
+    if layout.times_s is not None and frame_interval_s is not None:
+        notes.append(
+            f"the file's per-frame times ({layout.times_origin}) are replaced by nominal times "
+            f"(frame number x {frame_interval_s:g} s) because a frame interval was given; give "
+            "true times with a times file (--times FILE.csv) instead"
+        )
+        return None, "nominal", frame_interval_s, notes
+    notes.extend(layout.extra.get("times_notes", ()))
+    return layout.times_s, layout.times_origin, frame_interval_s, notes
+
+
 def _info_from_layout(
-    layout: _Layout, pixel_size_um: float | None, frame_interval_s: float | None
+    layout: _Layout, pixel_size_um: float | None, frame_interval_s: float | None,
+    times_csv: Any = None,
 ) -> tuple[StackInfo, CalibrationError | None]:
     problem_exc: CalibrationError | None = None
     cal: Calibration | None = None
+    times, times_origin, frame_interval_s, tnotes = _times(layout, frame_interval_s, times_csv)
     problems = []
     if pixel_size_um is None and layout.px[1]:
         problems.append(layout.px[1])
@@ -167,6 +201,8 @@ def _info_from_layout(
     tile = min(_TILE_PX, ny) * min(_TILE_PX, nx)
     analysis = t * tile * (8 + 3 * 4) + ny * nx * 4 * 8
     out_dtype = _output_dtype(np.dtype(layout.dtype), layout.samples)
+    if times is None and cal is not None:
+        times = np.arange(t, dtype=np.float64) * cal.frame_interval_s
     info = StackInfo(
         path=layout.path,
         format=layout.format,
@@ -180,7 +216,9 @@ def _info_from_layout(
         calibration=cal,
         calibration_problem=None if problem_exc is None else str(problem_exc),
         analysis_memory_bytes=int(analysis),
-        warnings=layout.warnings,
+        warnings=layout.warnings + tuple(tnotes),
+        times_origin=times_origin,
+        times_s=times,
     )
     return info, problem_exc
 
@@ -200,9 +238,12 @@ def inspect_stack(
     zslice: int | None = None,
     pixel_size_um: float | None = None,
     frame_interval_s: float | None = None,
+    times_csv: Any = None,
 ) -> StackInfo:
     """Describe a stack without loading it: shape, type, calibration, memory needs.
 
+    times_csv: a CSV of per-frame times in seconds (see `waves.io.timestamps`),
+    one per frame of the file; it replaces the file's times.
     Missing calibration is recorded in `calibration_problem`, never raised.
     Raises InputError for files that cannot be read as a time series (missing,
     not a TIFF, truncated, a single image, NaN/inf in float data) and
@@ -213,7 +254,7 @@ def inspect_stack(
     layout = _layout(path, channel, zslice)
     if layout.n_frames < 2:
         raise _single_image_error(layout)
-    info, _ = _info_from_layout(layout, pixel_size_um, frame_interval_s)
+    info, _ = _info_from_layout(layout, pixel_size_um, frame_interval_s, times_csv)
     if np.dtype(layout.dtype).kind == "f":
         t_idx = np.arange(layout.n_frames)
         src = _memmap(layout) if layout.memmap_offset is not None and layout.samples == 1 else None
@@ -233,6 +274,7 @@ def read_stack(
     pixel_size_um: float | None = None,
     frame_interval_s: float | None = None,
     min_frames: int = 2,
+    times_csv: Any = None,
 ) -> Stack:
     """Read a calibrated (t, y, x) stack.
 
@@ -241,6 +283,11 @@ def read_stack(
     are trimmed with a warning).  pixel_size_um / frame_interval_s override
     the file's calibration.  The data is memory-mapped when the file is
     uncompressed and contiguous and no binning or conversion is needed.
+    times_csv: a CSV file of per-frame times in seconds, one per frame of the
+    whole file (InputError on a wrong count, non-finite or non-increasing
+    times); it replaces the file's own per-plane times.  The result's
+    `times_s` holds the time of each selected frame from the file's first
+    frame, `times_origin` where it came from (see `waves.io.timestamps`).
     """
     pixel_size_um = _check_option(pixel_size_um, "pixel size (um)", "--pixel-size UM")
     frame_interval_s = _check_option(frame_interval_s, "frame interval (s)", "--frame-interval S")
@@ -252,7 +299,7 @@ def read_stack(
     layout = _layout(path, channel, zslice)
     if layout.n_frames == 1 and min_frames >= 2:
         raise _single_image_error(layout)
-    info, problem = _info_from_layout(layout, pixel_size_um, frame_interval_s)
+    info, problem = _info_from_layout(layout, pixel_size_um, frame_interval_s, times_csv)
     if problem is not None:
         raise problem
     assert info.calibration is not None
@@ -317,8 +364,10 @@ def read_stack(
         cal = cal.subsampled(step)
     if factor > 1:
         cal = cal.binned(factor)
+    assert info.times_s is not None
     return Stack(data=data, calibration=cal, info=info, warnings=tuple(notes), first_frame=int(start),
-                 frame_step=int(step), bin=factor)
+                 frame_step=int(step), bin=factor, times_s=np.array(info.times_s[t_idx]),
+                 times_origin=info.times_origin)
 
 
 def iter_blocks(stack: Stack, *, frames_per_block: int) -> Iterator[tuple[int, np.ndarray]]:

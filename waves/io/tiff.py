@@ -22,6 +22,7 @@ from waves.io.common import (
     _pages_nbytes,
     _tifffile_log,
 )
+from waves.io.timestamps import file_times, irregular_note, nominal_step_s
 
 
 def _plan_axes(
@@ -162,6 +163,20 @@ def _file_layout(path: pathlib.Path, channel: int | None, zslice: int | None) ->
             else:
                 px, dt, cnotes = (None, None), (None, None), []
             notes.extend(cnotes)
+            one_page_per_plane = len(series.pages) == n_planes
+            page_keys = _plane_keys(axes, shape, time, fixed, n_frames) if one_page_per_plane else None
+            times, times_origin, tnotes = file_times(
+                tif, fmt, n_frames, c_index=c_idx, z_index=z_idx, page_keys=page_keys
+            )
+            notes.extend(tnotes)
+            times_notes: list[str] = []  # reported only when these times are used
+            if times is not None:
+                if dt[0] is None and dt[1] is None:
+                    dt = (nominal_step_s(times), None)
+                if dt[0] is not None:
+                    irregular = irregular_note(times, dt[0], times_origin)
+                    if irregular:
+                        times_notes.append(irregular)
             byteorder = tif.byteorder
             compression = _compression_name(page)
             native = "<" if np.little_endian else ">"
@@ -170,12 +185,17 @@ def _file_layout(path: pathlib.Path, channel: int | None, zslice: int | None) ->
                 and compression == "none"
                 and (byteorder in (native, "=") or np.dtype(series.dtype).itemsize == 1)
             )
-            one_page_per_plane = len(series.pages) == n_planes
             if not memmap_ok and not one_page_per_plane:
                 notes.append("pages do not map one-to-one to planes; the whole series is read at once")
             if n_series > 1:
                 notes.append(f"the file holds {n_series} image series; reading the first")
-            notes.extend(f"tifffile: {r}" for r in log)
+            mm_log = [r for r in log if "micromanager" in r.lower()]
+            notes.extend(f"tifffile: {r}" for r in log if r not in mm_log)
+            if mm_log:
+                notes.append(
+                    "the file has Micro-Manager tags but no readable Micro-Manager header "
+                    "(tifffile: " + mm_log[0] + "); the per-image metadata is still used"
+                )
             return _Layout(
                 path=spath,
                 kind="file",
@@ -199,10 +219,28 @@ def _file_layout(path: pathlib.Path, channel: int | None, zslice: int | None) ->
                 px=px,
                 dt=dt,
                 cal_origin=fmt if fmt in ("imagej", "ome") else None,
-                extra={"one_page_per_plane": one_page_per_plane, "shaped": shaped},
+                extra={"one_page_per_plane": one_page_per_plane, "shaped": shaped,
+                       "times_notes": tuple(times_notes)},
+                times_s=times,
+                times_origin=times_origin,
             )
         finally:
             tif.close()
+
+
+def _plane_keys(
+    axes: str, shape: tuple[int, ...], time: int | None, fixed: list[tuple[int, int]], n_frames: int
+) -> list[int]:
+    """Page index of every frame at the selected channel and z-slice (one page per
+    plane, pages in the file's plane order as in `_file_frames`)."""
+    plane_axes = [i for i, ax in enumerate(axes) if ax not in "YXS"]
+    plane_shape = [shape[i] for i in plane_axes]
+    sel = dict(fixed)
+    keys = []
+    for t in range(n_frames):
+        multi = [t if i == time else sel.get(i, 0) for i in plane_axes]
+        keys.append(int(np.ravel_multi_index(multi, plane_shape)) if multi else 0)
+    return keys
 
 
 def _memmap(layout: _Layout) -> np.memmap:
