@@ -11,7 +11,9 @@ import numpy as np
 import pytest
 from synthetic_truth import grid_xy, median_truth, spiral_front_speed, window_truth
 
-import waves.analyse as analyse_module
+import waves.analyse.pipeline as analyse_pipeline  # patch targets: where each name is looked up
+import waves.analyse.strips as analyse_strips
+import waves.analyse.summary as analyse_summary
 from waves import synthetic as S
 from waves.analyse import AnalysisOptions, analyse_movie
 from waves.render import DarkfieldStyle
@@ -30,7 +32,7 @@ def _movie(sources, *, shape=(200, 200, 200), style=None, seed=1):
 
 
 def _no_curvature_correction(monkeypatch):
-    monkeypatch.setattr(analyse_module, "_correct_smoothing_bias", lambda maps, **kw: None)
+    monkeypatch.setattr(analyse_pipeline, "_correct_smoothing_bias", lambda maps, **kw: None)
 
 
 # ----------------------------------------------------------------- speed and wavelength
@@ -146,12 +148,12 @@ def test_detrending_removes_a_slow_baseline_drift(detrend, monkeypatch):
     # the low cut switched off here (only the mean removed), the drift takes over the
     # phase (measured: period 23 min, no speed) and the same check must fail.
     if not detrend:
-        analytic = analyse_module.analytic_signal
+        analytic = analyse_strips.analytic_signal
 
         def no_low_cut(x, *, passband, workers):
             return analytic(x, passband=(1e-9, passband[1]), workers=workers)
 
-        monkeypatch.setattr(analyse_module, "analytic_signal", no_low_cut)
+        monkeypatch.setattr(analyse_strips, "analytic_signal", no_low_cut)
     m = _movie([S.SpiralSource(1000.0, 1000.0, PERIOD)],
                style=DarkfieldStyle(drift=0.4, drift_period_frames=120, noise=0.01))
     a = analyse_movie(m.data, calibration=m.calibration)
@@ -171,7 +173,7 @@ def test_speeds_next_to_a_dead_patch_are_dropped_or_right(guard, monkeypatch):
     # 150 um of its rim); such speeds must be dropped.  With the guard switched off
     # here the same check must fail.
     if not guard:
-        monkeypatch.setattr(analyse_module, "kernel_saw_signal", lambda amp, sigma_px: np.ones(amp.shape, bool))
+        monkeypatch.setattr(analyse_summary, "kernel_saw_signal", lambda amp, sigma_px: np.ones(amp.shape, bool))
     m = _movie([S.TargetSource(500.0, 1000.0, PERIOD)])
     data = m.data.astype(np.float32)
     yy, xx = np.mgrid[0:200, 0:200]
@@ -204,7 +206,7 @@ def test_speeds_next_to_a_collision_line_are_dropped(guard, monkeypatch):
     # whose kernel reaches another territory must be dropped.  With that guard off here
     # the same check must fail.
     if not guard:
-        monkeypatch.setattr(analyse_module, "kernel_in_one_territory", lambda labels, sigma_px: np.ones(labels.shape, bool))
+        monkeypatch.setattr(analyse_summary, "kernel_in_one_territory", lambda labels, sigma_px: np.ones(labels.shape, bool))
     m = _movie([S.TargetSource(600.0, 1000.0, PERIOD), S.TargetSource(1400.0, 1000.0, PERIOD, phase0=1.0)])
     a = analyse_movie(m.data, calibration=m.calibration)
     d = a.tables["dispersion"]

@@ -284,10 +284,11 @@ def test_register_puts_a_drifted_core_back_where_it_is(tmp_path):
 
 
 def test_a_small_memory_budget_gives_the_same_results(spiral_path, tmp_path, monkeypatch):
-    import waves.analyse as A
+    import waves.analyse.clean as C  # patch targets: where each name is looked up
+    import waves.analyse.pipeline as P
 
     seen = {"in_memory": [], "rows": []}
-    movie_init, strip_rows = A._Movie.__init__, A._strip_rows
+    movie_init, strip_rows = C._Movie.__init__, P._strip_rows
 
     def spy_init(self, shape, *, in_memory, folder):
         seen["in_memory"].append(in_memory)
@@ -297,8 +298,8 @@ def test_a_small_memory_budget_gives_the_same_results(spiral_path, tmp_path, mon
         seen["rows"].append(strip_rows(*args))
         return seen["rows"][-1]
 
-    monkeypatch.setattr(A._Movie, "__init__", spy_init)
-    monkeypatch.setattr(A, "_strip_rows", spy_rows)
+    monkeypatch.setattr(C._Movie, "__init__", spy_init)
+    monkeypatch.setattr(P, "_strip_rows", spy_rows)
     big = _analyse(spiral_path, tmp_path / "big", "--memory-mb", "400")
     small = _analyse(spiral_path, tmp_path / "small", "--memory-mb", "1")
     # 400 MB holds the cleaned 160 x 80 x 80 float32 movie (4 MB) and all 80 rows in one

@@ -1,0 +1,152 @@
+"""Passes 1 and 2: the cleaned-movie buffer, binning and cleaning passes."""
+
+from __future__ import annotations
+
+import os
+import pathlib
+import tempfile
+
+import numpy as np
+
+from waves import preprocess
+from waves.analyse.options import AnalysisOptions
+from waves.errors import InputError
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _progress(total: int, desc: str, enabled: bool):
+    from tqdm.auto import tqdm
+
+    return tqdm(total=total, desc=desc, unit="block", disable=not enabled, leave=False)
+
+
+class _Movie:
+    """The cleaned movie: an in-memory array, or a float32 scratch file read
+    and written through short-lived memory maps, so that its pages do not
+    pile up in this process's resident memory."""
+
+    def __init__(self, shape: tuple[int, int, int], *, in_memory: bool, folder: pathlib.Path | None):
+        self.shape = shape
+        self.path = None
+        if in_memory:
+            self._array = np.empty(shape, dtype=np.float32)
+        else:
+            self._array = None
+            base = folder if folder is not None else pathlib.Path(tempfile.gettempdir())
+            base.mkdir(parents=True, exist_ok=True)
+            fd, name = tempfile.mkstemp(prefix=".waves-scratch-", suffix=".f32", dir=base)
+            os.close(fd)
+            self.path = pathlib.Path(name)
+            with open(self.path, "r+b") as fh:
+                fh.truncate(int(np.prod(shape)) * 4)
+
+    def _map(self, mode: str) -> np.ndarray:
+        if self._array is not None:
+            return self._array
+        return np.memmap(self.path, dtype=np.float32, mode=mode, shape=self.shape)
+
+    def write(self, t0: int, block: np.ndarray) -> None:
+        m = self._map("r+")
+        m[t0 : t0 + len(block)] = block
+        if m is not self._array:
+            m.flush()
+        del m
+
+    def frames(self, t0: int, t1: int) -> np.ndarray:
+        m = self._map("r")
+        out = np.array(m[t0:t1], dtype=np.float32)
+        del m
+        return out
+
+    def rows(self, a0: int, a1: int) -> np.ndarray:
+        m = self._map("r")
+        out = np.array(m[:, a0:a1, :], dtype=np.float32)
+        del m
+        return out
+
+    def view(self) -> np.ndarray:
+        """The whole movie as an array (in memory) or a read-only memory map."""
+        return self._map("r")
+
+    def close(self) -> None:
+        self._array = None
+        if self.path is not None:
+            try:
+                self.path.unlink()
+            except FileNotFoundError:
+                pass
+
+
+def clean_buffer(shape: tuple[int, int, int], *, folder: pathlib.Path | None = None,
+                 max_memory_bytes: float = 1e9) -> _Movie:
+    """A float32 (t, y, x) buffer for a movie written frame by frame (e.g. the
+    simulator's clean field): in memory up to `max_memory_bytes`, else a
+    scratch file in `folder` that `close()` deletes."""
+    nbytes = float(np.prod(shape)) * 4
+    return _Movie(tuple(int(v) for v in shape), in_memory=nbytes <= max_memory_bytes, folder=folder)
+
+
+def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar) -> np.ndarray:
+    """Read the recording once: bin every frame block into `movie`, refuse
+    non-finite or flat movies, and return the temporal-mean image (binned)."""
+    nt = data.shape[0]
+    mean = np.zeros(movie.shape[1:], dtype=np.float64)
+    lo, hi = np.inf, -np.inf
+    for t0 in range(0, nt, block):
+        raw = np.asarray(data[t0 : t0 + block])
+        b = preprocess.bin_frames(raw, factor) if factor > 1 else raw.astype(np.float32)
+        if not np.isfinite(b).all():
+            bad = np.flatnonzero(~np.isfinite(b).reshape(len(b), -1).all(axis=1)) + t0
+            raise InputError(
+                f"frames {', '.join(map(str, bad[:5]))}{' ...' if len(bad) > 5 else ''} hold NaN or "
+                "infinite values; replace them or choose other frames with --frames"
+            )
+        mean += b.sum(axis=0, dtype=np.float64)
+        lo = min(lo, float(b.min()))
+        hi = max(hi, float(b.max()))
+        movie.write(t0, b)
+        bar.update(1)
+    if hi - lo <= 0:
+        raise InputError(f"the movie is flat: every pixel of every frame is {lo:g}; there are no waves to measure")
+    return (mean / nt).astype(np.float32)
+
+
+def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,
+           block: int, bar, workers: int, notes: list) -> None:
+    """Register, flatten, remove the mean and smooth the binned movie in place."""
+    nt = movie.shape[0]
+    gain = None
+    if options.flatten and float(mean_b.max()) > 0:
+        dish = preprocess.dish_mask(mean_b)  # a dark surround must not enter the gain fit
+        gain = preprocess.illumination_gain(mean_b, sigma_px=max(mean_b.shape) / 8.0, mask=dish)
+        gain = np.maximum(gain, 1e-3 * float(gain.max()))
+    shifts = None
+    if options.register:
+        # registered on the analysis grid; the reference is the temporal median
+        shifts = preprocess.estimate_drift(movie.view())
+        notes.append(f"drift corrected: largest shift {factor * np.abs(shifts).max():.2f} px of the recording")
+    reference = mean_b / gain if gain is not None else mean_b
+
+    def one(t0):
+        b = movie.frames(t0, t0 + block)
+        if shifts is not None:
+            b = preprocess.apply_drift(b, shifts[t0 : t0 + len(b)])
+        if gain is not None:
+            b /= gain
+        b -= reference
+        if sigma_px > 0.3:
+            b = preprocess.smooth_space(b, sigma_px=sigma_px)
+        movie.write(t0, b)
+        bar.update(1)
+
+    starts = range(0, nt, block)
+    if workers > 1 and movie.path is None:
+        # frame blocks are independent; scipy.ndimage releases the GIL
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            list(pool.map(one, starts))
+    else:
+        for t0 in starts:
+            one(t0)

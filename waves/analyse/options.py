@@ -1,0 +1,75 @@
+"""Options of an analysis, its result type and the pipeline's constants."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from waves.errors import WavesError
+
+# Trade-sensible default: aggregating fields show periods of about 8-10 min
+# early falling to 2-4 min late (REFERENCES.md, [memory]); 6 min is typical.
+DEFAULT_PERIOD_BAND_MIN = (2.0, 20.0)
+
+HALO_PX = 3  # gradient (1) + activation-fit radius (2)
+FIT_RADIUS_PX = 2
+MAX_SMOOTHING_CORRECTION = 0.03  # larger curvature corrections of a speed are not trusted: the speed is dropped
+PIXELS_PER_WAVELENGTH = 24  # target of the automatic analysis binning
+DISCLAIMER = "research measurements; not a clinical, diagnostic or safety judgement"
+
+
+@dataclass(frozen=True)
+class AnalysisOptions:
+    """What `analyse_movie` does.  Units in the names."""
+
+    period_band_min: tuple[float, float] = DEFAULT_PERIOD_BAND_MIN
+    phase_method: str = "hilbert"  # or "delay": delay embedding with a quarter-period lag
+    analysis_bin: int | None = None  # None: bin so a wavelength spans ~24 px
+    flatten: bool = True
+    register: bool = False
+    smooth_sigma_um: float | None = None  # None: wavelength / 12, from the first look
+    min_amplitude: float | None = None  # signal floor of the amplitude map; None: Otsu
+    min_coherence: float = 0.8  # speed only where the wave direction is steady
+    persistent_periods: float = 1.0  # a core must live this many periods
+    window_periods: float = 3.0  # period time course: window length in periods
+    memory_budget_mb: float = 400.0
+    workers: int = 2
+
+    def __post_init__(self) -> None:
+        lo, hi = self.period_band_min
+        if not (0 < lo < hi):
+            raise WavesError(
+                "period band must be two increasing positive numbers of minutes, "
+                f"got {self.period_band_min!r}"
+            )
+        if self.analysis_bin is not None and (int(self.analysis_bin) != self.analysis_bin or self.analysis_bin < 1):
+            raise WavesError(f"analysis binning must be a whole number >= 1, got {self.analysis_bin!r}")
+        if self.smooth_sigma_um is not None and not self.smooth_sigma_um >= 0:
+            raise WavesError("smoothing sigma must be zero or positive (um)")
+        if not 0 <= self.min_coherence < 1:
+            raise WavesError(f"min_coherence must be in [0, 1), got {self.min_coherence!r}")
+        if self.min_amplitude is not None and not self.min_amplitude >= 0:
+            raise WavesError("min_amplitude must be zero or positive")
+        for name in ("persistent_periods", "window_periods", "memory_budget_mb"):
+            if not getattr(self, name) > 0:
+                raise WavesError(f"{name} must be positive, got {getattr(self, name)!r}")
+        if self.phase_method not in ("hilbert", "delay"):
+            raise WavesError(f"phase method must be 'hilbert' or 'delay', got {self.phase_method!r}")
+        if int(self.workers) < 1:
+            raise WavesError("workers must be at least 1")
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Everything an analysis found, in calibrated units, ready to write.
+
+    `maps` are on the analysis grid, whose pixel size and origin (the
+    recorded-image position of map pixel (0, 0), in um) are in
+    summary['analysis']['grid'].
+    """
+
+    summary: dict
+    maps: dict  # name -> (y, x) float32 array, names carry units
+    tables: dict  # name -> {column: 1-D array}
+    warnings: tuple[str, ...]
+    timings_s: dict = field(default_factory=dict)
+    stacks: dict = field(default_factory=dict)  # name -> (n, y, x) array, e.g. territories per window

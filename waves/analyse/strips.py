@@ -1,0 +1,162 @@
+"""Pass 3: row strips -> phase, compiled per-pixel measures, charges; smoothing-bias correction and core tracking."""
+
+from __future__ import annotations
+
+import warnings as warnings_module
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from waves import preprocess
+from waves.analyse.clean import _Movie, _progress
+from waves.analyse.options import FIT_RADIUS_PX, HALO_PX, MAX_SMOOTHING_CORRECTION
+from waves.measure.fused import pixel_measures
+from waves.measure.speed import (
+    activation_fit_speed,
+    activation_times,
+    smoothing_speed_correction,
+)
+from waves.phase import tracking
+from waves.phase.analytic import (
+    analytic_signal,
+    delay_embedding_phase,
+    phase_and_amplitude,
+)
+from waves.phase.charge import plaquette_charge
+
+
+@dataclass
+class _Maps:
+    amplitude: np.ndarray
+    period: np.ndarray  # (n_windows + 1, y, x): whole movie, then windows
+    speed: np.ndarray
+    direction: np.ndarray
+    coherence: np.ndarray
+    omega: np.ndarray  # phase advance per frame
+    fit_speed: np.ndarray
+    interval_cv: np.ndarray  # spread of the intervals between waves (std / mean)
+    charges: list  # of int64 (n, 4) arrays: frame, row, col, charge
+    arrivals: list = field(default_factory=list)  # (first row, (rows, x, m) arrival times) per strip
+
+
+def _strip_rows(ny: int, nx: int, nt: int, budget_bytes: float) -> int:
+    """Rows per strip so that one strip's working set fits the budget: per
+    pixel and frame about 40 bytes (float32 input, complex64 analytic signal
+    and its FFT buffer, phase, amplitude, arrival times)."""
+    rows = int(budget_bytes // (nt * nx * 40.0))
+    return max(4, min(rows, ny))
+
+
+def _phase(z: np.ndarray, lag: int | None) -> tuple[np.ndarray, np.ndarray]:
+    """Phase and amplitude from the analytic signal, or, with a lag, by delay
+    embedding of its real part (the band-passed signal); the embedding drops
+    the last `lag` frames."""
+    if lag is None:
+        return phase_and_amplitude(z)
+    x = z.real
+    phase = delay_embedding_phase(x, lag_frames=lag)[:-lag]
+    amp = np.hypot(x[:-lag], x[lag:]).astype(np.float32)
+    return phase, amp
+
+
+def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, period_frames, lag, workers,
+                    progress):
+    nt, ny, nx = movie.shape
+    n = len(windows) + 1
+    maps = _Maps(
+        amplitude=np.full((ny, nx), np.nan, np.float32),
+        period=np.full((n, ny, nx), np.nan, np.float32),
+        speed=np.full((n, ny, nx), np.nan, np.float32),
+        direction=np.full((n, ny, nx), np.nan, np.float32),
+        coherence=np.full((n, ny, nx), np.nan, np.float32),
+        omega=np.full((n, ny, nx), np.nan, np.float32),
+        fit_speed=np.full((ny, nx), np.nan, np.float32),
+        interval_cv=np.full((ny, nx), np.nan, np.float32),
+        charges=[],
+    )
+    starts = list(range(0, ny, rows_per_strip))
+    bar = _progress(len(starts), "phase, period, speed, cores", progress)
+    for r0 in starts:
+        r1 = min(ny, r0 + rows_per_strip)
+        a0, a1 = max(0, r0 - HALO_PX), min(ny, r1 + HALO_PX)
+        z = analytic_signal(movie.rows(a0, a1), passband=passband, workers=workers)[trim : nt - trim]
+        phase, amp = _phase(z, lag)
+        del z
+        inner = slice(r0 - a0, r1 - a0)
+        pm = pixel_measures(phase, amp, rows=(inner.start, inner.stop), windows=windows)
+        maps.amplitude[r0:r1] = pm.amplitude
+        maps.period[:, r0:r1] = pm.period_frames
+        maps.speed[:, r0:r1] = pm.speed_px_per_frame
+        maps.direction[:, r0:r1] = pm.direction_rad
+        maps.coherence[:, r0:r1] = pm.coherence
+        maps.omega[:, r0:r1] = pm.omega_rad_per_frame
+        times, counts = activation_times(phase)
+        sp, _ = activation_fit_speed(times, counts, radius_px=FIT_RADIUS_PX, max_dt_frames=period_frames / 3.0)
+        with warnings_module.catch_warnings():
+            warnings_module.simplefilter("ignore", RuntimeWarning)  # all-NaN pixels give NaN
+            maps.fit_speed[r0:r1] = np.nanmedian(sp[inner], axis=2)
+            gaps = np.diff(times[inner], axis=2)
+            maps.interval_cv[r0:r1] = np.nanstd(gaps, axis=2) / np.nanmean(gaps, axis=2)
+        maps.arrivals.append((r0, times[inner].copy()))  # for the centres' own waves
+        del times, counts, sp
+        # charges of the plaquettes whose top-left pixel is an inner pixel
+        q = plaquette_charge(phase[:, inner.start : min(inner.stop + 1, a1 - a0)])
+        t_i, r_i, c_i = np.nonzero(q[:, : r1 - r0])
+        if t_i.size:
+            maps.charges.append(np.stack([t_i, r_i + r0, c_i, q[t_i, r_i, c_i].astype(np.int64)], axis=1))
+        del phase, amp, q
+        bar.update(1)
+    bar.close()
+    return maps
+
+
+def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int) -> None:
+    """Undo the curvature bias the spatial smoothing (and the binning's box
+    average) puts into the phase speeds, window by window, and into the
+    activation-fit speeds (with the whole-movie factor), in place; drop
+    speeds whose correction exceeds MAX_SMOOTHING_CORRECTION (next to a
+    target's source, where the leading-order correction no longer holds).
+
+    Why: smoothing flattens the phase of curved fronts, so a ring of radius r
+    looks sigma^2 / (2 r^2) faster (measured over a synthetic target field at
+    sigma = wavelength / 12: +0.83 % median, +0.23 % after this correction,
+    +0.15 % without smoothing); see
+    waves.measure.speed.smoothing_speed_correction.  The bias at the frame
+    edges is avoided by the smoothing itself (preprocess.smooth_space)."""
+    ny, nx = maps.amplitude.shape
+    box = (1.0 - 1.0 / factor**2) / 12.0  # variance of a box of `factor` recorded pixels, in binned pixels^2
+    var_row = box + (preprocess.smoothing_variance_px2(ny, sigma_px=sigma_px) if sigma_px > 0.3 else 0.0)
+    var_col = box + (preprocess.smoothing_variance_px2(nx, sigma_px=sigma_px) if sigma_px > 0.3 else 0.0)
+    if ny < 3 or nx < 3 or not (np.any(var_row > 0) or np.any(var_col > 0)):
+        return
+    for w in range(maps.speed.shape[0]):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            k = maps.omega[w].astype(np.float64) / maps.speed[w]
+        kx = k * np.cos(maps.direction[w])
+        ky = -k * np.sin(maps.direction[w])  # direction is displayed (+y up = -row)
+        f = smoothing_speed_correction(kx, ky, var_row=np.broadcast_to(var_row, (ny,)),
+                                       var_col=np.broadcast_to(var_col, (nx,)), smooth_px=2.0 * max(sigma_px, 1.0))
+        with np.errstate(invalid="ignore"):
+            ok = np.abs(f - 1.0) <= MAX_SMOOTHING_CORRECTION
+        maps.speed[w] = np.where(ok, maps.speed[w] / np.where(ok, f, 1.0), np.nan)
+        if w == 0:  # arrival times come from the same smoothed phase: the same bias
+            maps.fit_speed[:] = np.where(ok, maps.fit_speed / np.where(ok, f, 1.0), np.nan)
+
+
+def _detect_and_track(charges, *, signal, n_frames, period_frames):
+    """Cores per frame from the collected plaquette charges (only plaquettes
+    whose top-left pixel carries a signal), then tracks."""
+    ny, nx = signal.shape
+    allq = np.concatenate(charges, axis=0) if charges else np.zeros((0, 4), dtype=np.int64)
+    allq = allq[signal[allq[:, 1], allq[:, 2]]]
+    tables = []
+    block = 64
+    for f0 in range(0, n_frames, block):
+        f1 = min(n_frames, f0 + block)
+        sel = allq[(allq[:, 0] >= f0) & (allq[:, 0] < f1)]
+        q = np.zeros((f1 - f0, ny - 1, nx - 1), dtype=np.int8)
+        if len(sel):
+            q[sel[:, 0] - f0, sel[:, 1], sel[:, 2]] = sel[:, 3].astype(np.int8)
+        tables.append(tracking.detect_cores_stack(q, first_frame=f0))
+    detections = tracking.concat_tables(tables)
+    return tracking.track_cores(detections, max_step_px=max(2.0, 0.1 * period_frames), max_gap_frames=2)

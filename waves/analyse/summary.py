@@ -1,0 +1,356 @@
+"""Whole maps and tracks -> summary, tables and maps in calibrated units."""
+
+from __future__ import annotations
+
+import time
+import warnings as warnings_module
+from dataclasses import asdict
+
+import numpy as np
+import scipy.ndimage
+
+from waves import __version__, preprocess
+from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
+from waves.analyse.strips import _detect_and_track, _Maps
+from waves.measure.centres import emission_intervals, track_centres
+from waves.measure.period import quartiles
+from waves.measure.speed import (
+    kernel_in_one_territory,
+    kernel_saw_signal,
+)
+from waves.phase import tracking
+from waves.units import Calibration
+
+
+def _grid(cal: Calibration, factor: int) -> dict:
+    """Analysis-grid pixel size and the recorded-image position (um) of its
+    pixel (0, 0): binned pixel (r, c) covers recorded rows r*f .. r*f + f - 1,
+    so its centre is at recorded pixel r*f + (f - 1)/2."""
+    px = cal.pixel_size_um
+    origin = 0.5 * (factor - 1) * px
+    return {"bin": factor, "pixel_size_um": px * factor, "origin_x_um": origin, "origin_y_um": origin}
+
+
+def _to_recorded(table: dict, *, factor: int, frame_offset: int, pos_cols=("row", "col")) -> dict:
+    out = dict(table)
+    for k in pos_cols:
+        if k in out:
+            out[k] = np.asarray(out[k], dtype=np.float64) * factor + 0.5 * (factor - 1)
+    for k in ("frame", "first_frame", "last_frame"):
+        if k in out:
+            out[k] = np.asarray(out[k]) + frame_offset
+    for k in ("mean_row", "mean_col"):
+        if k in out:
+            out[k] = np.asarray(out[k], dtype=np.float64) * factor + 0.5 * (factor - 1)
+    for k in ("gyration_radius_px", "max_excursion_px", "path_length_px"):
+        if k in out:
+            out[k] = np.asarray(out[k], dtype=np.float64) * factor
+    return out
+
+
+def _signal_without_empty_holes(amp, filled, options, core_tracks):
+    strict = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=9)
+    holes, n = scipy.ndimage.label(filled & ~strict)
+    if n == 0:
+        return filled
+    keep = np.zeros(n + 1, dtype=bool)
+    ny, nx = amp.shape
+    for r, c in zip(core_tracks["mean_row"], core_tracks["mean_col"], strict=True):
+        r0, c0 = int(min(max(round(r), 0), ny - 1)), int(min(max(round(c), 0), nx - 1))
+        window = holes[max(r0 - 1, 0) : r0 + 2, max(c0 - 1, 0) : c0 + 2]
+        keep[np.unique(window)] = True
+    keep[0] = False
+    return strict | keep[holes]
+
+
+def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
+               mean_b, warnings, notes):
+    nyb, nxb = maps.amplitude.shape
+    dt_min = cal.frame_interval_min
+    px_b = cal.pixel_size_um * factor
+    amp = np.nan_to_num(maps.amplitude, nan=0.0)
+    # small low-amplitude holes (spiral cores oscillate weakly) stay inside the signal
+    wl_guess = float(np.nanmedian(maps.speed[0] * maps.period[0]))
+    hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
+    filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole)
+    tracks = _detect_and_track(maps.charges, signal=filled, n_frames=usable, period_frames=period0)
+    persistent = tracking.persistent_tracks(
+        tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
+    )
+    # holes without a core are places without signal (obstacles, empty patches): out
+    valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks)
+
+    # speeds only where the direction is steady and away from persistent cores
+    wl_px = float(np.nanmedian(np.where(valid, maps.speed[0] * maps.period[0], np.nan)))
+    # ... and where the smoothing kernel saw signal all round (no dead patch, no second territory)
+    speed_ok = valid & (maps.coherence[0] >= options.min_coherence) & kernel_saw_signal(amp, sigma_px=sigma_px)
+    per = persistent.tracks
+    if len(per["track_id"]):
+        rr, cc = np.mgrid[0:nyb, 0:nxb]
+        rad = 0.5 * wl_px if np.isfinite(wl_px) else 5.0
+        for r, c in zip(per["mean_row"], per["mean_col"], strict=True):
+            speed_ok &= np.hypot(rr - r, cc - c) > rad
+    # centres closer than a quarter wavelength are one
+    merge_px = max(2.0, 0.25 * wl_px) if np.isfinite(wl_px) else 3.0
+    cs = track_centres(
+        maps.direction,
+        maps.coherence,
+        valid,
+        merge_radius_px=merge_px,
+        min_coherence=options.min_coherence,
+        cores_rows=per["mean_row"],
+        cores_cols=per["mean_col"],
+        cores_ids=per["track_id"],
+    )
+    speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
+
+    to_um_per_min = px_b / dt_min
+    period_map = np.where(valid, maps.period[0] * dt_min, np.nan).astype(np.float32)
+    speed_map = np.where(speed_ok, maps.speed[0] * to_um_per_min, np.nan).astype(np.float32)
+    wavelength_map = (speed_map * period_map).astype(np.float32)
+    fit_map = np.where(speed_ok, maps.fit_speed * to_um_per_min, np.nan).astype(np.float32)
+    direction_map = np.where(speed_ok, np.rad2deg(maps.direction[0]), np.nan).astype(np.float32)
+
+    # period time course and dispersion points (per window, per region of a 3 x 3 grid)
+    course = []
+    disp = {k: [] for k in ("window", "t_min", "region", "period_min", "speed_um_per_min", "n_pixels")}
+    nreg = 3
+    region = (np.minimum(np.arange(nyb) * nreg // nyb, nreg - 1)[:, None] * nreg
+              + np.minimum(np.arange(nxb) * nreg // nxb, nreg - 1)[None, :])
+    for i, (w0, w1) in enumerate(windows):
+        t_mid = (trim + 0.5 * (w0 + w1)) * dt_min
+        pw = np.where(valid, maps.period[i + 1], np.nan)
+        q = quartiles(pw * dt_min)
+        if q is not None:
+            course.append({"t_min": float(t_mid), "period_min": q["median"], "q25": q["q25"], "q75": q["q75"]})
+        ok = (speed_ok & (maps.coherence[i + 1] >= options.min_coherence) & np.isfinite(pw)
+              & np.isfinite(maps.speed[i + 1]) & kernel_in_one_territory(cs.window_labels[i], sigma_px=sigma_px))
+        for g in range(nreg * nreg):
+            m = ok & (region == g)
+            if m.sum() < 10:
+                continue
+            disp["window"].append(i)
+            disp["t_min"].append(t_mid)
+            disp["region"].append(g)
+            disp["period_min"].append(float(np.median(pw[m])) * dt_min)
+            disp["speed_um_per_min"].append(float(np.median(maps.speed[i + 1][m])) * to_um_per_min)
+            disp["n_pixels"].append(int(m.sum()))
+    dtypes = {"window": np.int64, "t_min": np.float64, "region": np.int64, "period_min": np.float64,
+              "speed_um_per_min": np.float64, "n_pixels": np.int64}
+    dispersion = {k: np.asarray(v, dtype=dtypes[k]) for k, v in disp.items()}
+
+    px = cal.pixel_size_um
+    dt_s = cal.frame_interval_s
+    cores_rec = _to_recorded(tracks.cores, factor=factor, frame_offset=trim)
+    tracks_rec = _to_recorded(tracks.tracks, factor=factor, frame_offset=trim)
+    pers_rec = _to_recorded(persistent.tracks, factor=factor, frame_offset=trim)
+    cores_um = tracking.cores_in_um(cores_rec, pixel_size_um=px, frame_interval_s=dt_s)
+    tracks_um = tracking.tracks_in_um(tracks_rec, pixel_size_um=px, frame_interval_s=dt_s)
+    spiral_cores = tracking.spiral_core_records(pers_rec, pixel_size_um=px, frame_interval_s=dt_s)
+    field_px = float(valid.sum())
+    density = (
+        tracking.cores_per_cm2(len(per["track_id"]), field_area_px=field_px, pixel_size_um=px_b)
+        if field_px > 0 else None
+    )
+    if not valid.any():
+        warnings.append("no pixel carries a signal above the amplitude floor")
+    period_q, speed_q = quartiles(period_map), quartiles(speed_map)
+    if speed_q is None and period_q is not None:
+        warnings.append("front speed not measured: no pixel has a steady wave direction away from cores and collisions")
+    grid = _grid(cal, factor)
+    centres, centres_tab, terr_course = _centre_records(
+        cs, maps=maps, valid=valid, windows=windows, trim=trim, factor=factor, cal=cal, merge_px=merge_px,
+        spiral_cores=spiral_cores,
+    )
+    summary = {
+        "schema_version": 1,
+        "source": None,  # filled by the caller that knows the file
+        "calibration": cal.to_dict(),
+        "period_min": period_q,
+        "front_speed_um_per_min": speed_q,
+        "wavelength_um": quartiles(wavelength_map),
+        "period_timecourse": [{"t_min": c["t_min"], "period_min": c["period_min"]} for c in course],
+        "spiral_cores": spiral_cores,
+        "centres": centres,
+        "warnings": list(warnings),
+        # extra keys
+        "centres_per_cm2": (len(centres) / (field_px * px_b * px_b * 1e-8)) if field_px > 0 else None,
+        "unassigned_share": (
+            float(np.sum(valid & (cs.labels == 0)) / field_px) if field_px > 0 else None
+        ),
+        "front_speed_activation_fit_um_per_min": quartiles(fit_map),
+        "cores_per_cm2": density,
+        "dominant_period_min": period0 * dt_min,
+        "analysis": {
+            "waves_version": __version__,
+            "options": _options_dict(options),
+            "grid": grid,
+            "passband_period_min": [dt_min / passband[1], dt_min / passband[0]],
+            "trimmed_frames_each_end": trim,
+            "phase_method": options.phase_method,
+            "delay_lag_frames": lag,
+            "window_min": (windows[0][1] - windows[0][0]) * dt_min if windows else None,
+            "window_step_min": (windows[1][0] - windows[0][0]) * dt_min if len(windows) > 1 else None,
+            "window_centres_min": [(trim + 0.5 * (a + b)) * dt_min for a, b in windows],
+            "smoothing_sigma_um": sigma_px * px_b,
+            "signal_fraction": float(valid.mean()),
+            "notes": notes,
+        },
+        "disclaimer": DISCLAIMER,
+    }
+    out_maps = {
+        "period_min": period_map,
+        "front_speed_um_per_min": speed_map,
+        "wavelength_um": wavelength_map,
+        "front_speed_activation_fit_um_per_min": fit_map,
+        "direction_deg": direction_map,
+        "territory_labels": cs.labels.astype(np.int32),
+        "interval_cv": np.where(valid, maps.interval_cv, np.nan).astype(np.float32),
+        "amplitude": maps.amplitude,
+        "mean_image": mean_b,
+    }
+    course_tab = {
+        "t_min": np.asarray([c["t_min"] for c in course], dtype=np.float64),
+        "period_min": np.asarray([c["period_min"] for c in course], dtype=np.float64),
+        "period_q25_min": np.asarray([c["q25"] for c in course], dtype=np.float64),
+        "period_q75_min": np.asarray([c["q75"] for c in course], dtype=np.float64),
+    }
+    tables = {
+        "cores_per_frame": cores_um,
+        "core_tracks": tracks_um,
+        "period_timecourse": course_tab,
+        "dispersion": dispersion,
+        "centres": centres_tab,
+        "territories_timecourse": terr_course,
+    }
+    stacks = {"territory_labels_windows": cs.window_labels}
+    return summary, out_maps, tables, stacks
+
+
+def _arrival_times(strips, shape) -> np.ndarray:
+    """(y, x, m) arrival times (frames, NaN-padded) from the per-strip arrays."""
+    m = max([t.shape[2] for _, t in strips], default=1)
+    out = np.full(shape + (m,), np.nan, np.float32)
+    for r0, t in strips:
+        out[r0 : r0 + t.shape[0], :, : t.shape[2]] = t
+    return out
+
+
+def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, spiral_cores):
+    """summary['centres'], the centres table and the per-window territory
+    table, in calibrated units and recorded-image coordinates."""
+    px = cal.pixel_size_um
+    px_b = px * factor
+    dt_min = cal.frame_interval_min
+    nyb, nxb = valid.shape
+    rr, cc = np.mgrid[0:nyb, 0:nxb]
+    field_px = max(float(valid.sum()), 1.0)
+    area_mm2 = px_b * px_b * 1e-6
+    core_by_track = {c["id"]: c for c in spiral_cores}
+    arrivals = _arrival_times(maps.arrivals, valid.shape)
+
+    def window_min(w, end):
+        if w < 0:
+            return None
+        a, b = windows[w]
+        return float((trim + (b if end else a)) * dt_min)
+
+    records = []
+    tab = {k: [] for k in ("id", "kind", "x_um", "y_um", "charge", "rotation", "period_min", "interval_cv",
+                           "territory_area_mm2", "equivalent_diameter_um", "field_share", "first_min",
+                           "last_min")}
+    c = cs.centres
+    for i in range(len(c["id"])):
+        r, col = c["row"][i], c["col"][i]
+        near = valid & (np.hypot(rr - r, cc - col) <= merge_px)
+        with warnings_module.catch_warnings():
+            warnings_module.simplefilter("ignore", RuntimeWarning)
+            period = float(np.nanmedian(maps.period[0][near])) * dt_min if near.any() else float("nan")
+            cv = float(np.nanmedian(maps.interval_cv[near])) if near.any() else float("nan")
+        # from the waves the centre emitted itself (not those that entrain it later)
+        own = np.zeros(0)
+        if np.isfinite(period):
+            own = emission_intervals(arrivals, r, col, radius_px=merge_px,
+                                     max_lag_frames=0.5 * period / dt_min)
+        whole = c["first_window"][i] <= 0 and c["last_window"][i] in (-1, len(windows) - 1)
+        if len(own):
+            period = float(np.mean(own)) * dt_min  # = (last - first) / n over runs of own waves
+            cv = float(np.std(own) / np.mean(own)) if len(own) >= 2 else float("nan")
+        elif c["kind"][i] == "target" and not whole:
+            period = cv = float("nan")  # a source for part of the movie; no own interval seen
+        n = int(c["n_pixels"][i])
+        area = n * area_mm2
+        core = core_by_track.get(int(c["core_track"][i]))
+        x_um = (col * factor + 0.5 * (factor - 1)) * px
+        y_um = (r * factor + 0.5 * (factor - 1)) * px
+        if core is not None:
+            x_um, y_um = core["x_um"], core["y_um"]
+        rec = {
+            "id": int(c["id"][i]),
+            "kind": str(c["kind"][i]),
+            "x_um": float(x_um),
+            "y_um": float(y_um),
+            "period_min": period if np.isfinite(period) else None,
+            "territory_area_mm2": float(area),
+            # extra keys
+            "equivalent_diameter_um": float(2e3 * np.sqrt(area / np.pi)),
+            "field_share": float(n / field_px),
+            "interval_cv": cv if np.isfinite(cv) else None,
+            "charge": None if core is None else core["charge"],
+            "rotation": None if core is None else core["rotation"],
+            "first_min": window_min(int(c["first_window"][i]), False),
+            "last_min": window_min(int(c["last_window"][i]), True),
+        }
+        records.append(rec)
+        for k in tab:
+            tab[k].append(rec[k])
+    dtypes = {"id": np.int64, "kind": object, "rotation": object}
+    centres_tab = {
+        k: np.asarray([np.nan if v is None else v for v in vals] if k not in dtypes else
+                      ["" if v is None else v for v in vals], dtype=dtypes.get(k, np.float64))
+        for k, vals in tab.items()
+    }
+    centres_tab["charge"] = np.asarray([0 if v is None else v for v in tab["charge"]], dtype=np.int64)
+    wa = cs.window_areas
+    t_mid = np.asarray([(trim + 0.5 * (windows[w][0] + windows[w][1])) * dt_min for w in wa["window"]],
+                       dtype=np.float64)
+    course = {
+        "window": wa["window"],
+        "t_min": t_mid,
+        "centre_id": wa["centre_id"],
+        "territory_area_mm2": wa["n_pixels"].astype(np.float64) * area_mm2,
+        "field_share": wa["n_pixels"].astype(np.float64) / field_px,
+    }
+    return records, centres_tab, course
+
+
+def _options_dict(options: AnalysisOptions) -> dict:
+    d = asdict(options)
+    d["period_band_min"] = list(options.period_band_min)
+    return d
+
+
+def _empty_result(cal, options, warnings, notes, sigma_um, mean_b, grid, timings, t_start) -> Analysis:
+    summary = {
+        "schema_version": 1,
+        "source": None,
+        "calibration": cal.to_dict(),
+        "period_min": None,
+        "front_speed_um_per_min": None,
+        "wavelength_um": None,
+        "period_timecourse": [],
+        "spiral_cores": [],
+        "centres": [],
+        "warnings": list(warnings),
+        "analysis": {
+            "waves_version": __version__,
+            "options": _options_dict(options),
+            "grid": grid,
+            "smoothing_sigma_um": sigma_um,
+            "notes": notes,
+        },
+        "disclaimer": DISCLAIMER,
+    }
+    timings["total_s"] = time.perf_counter() - t_start
+    return Analysis(summary=summary, maps={"mean_image": mean_b}, tables={}, warnings=tuple(warnings),
+                    timings_s=timings)
