@@ -321,12 +321,12 @@ def read_times_csv(path: Any) -> np.ndarray:
                     "time; keep one column of times in seconds, or name it 'time_s'"
                 )
             column = named[0]
-            unit = re.search(r"(?:\(|\[|_)(ms|s|min|h)(?:\)|\]|$)", header[column], re.IGNORECASE)
-            if unit and unit.group(1).lower() != "s":
-                raise InputError(
-                    f"the times file {p} gives times in {unit.group(1)} (column {header[column]!r}); "
-                    "waves reads times in seconds: convert the column"
-                )
+        unit = re.search(r"(?:\(|\[|_|\s)(ms|s|min|h)(?:\)|\]|$)", header[column], re.IGNORECASE)
+        if unit and unit.group(1).lower() != "s":
+            raise InputError(
+                f"the times file {p} gives times in {unit.group(1)} (column {header[column]!r}); "
+                "waves reads times in seconds: convert the column"
+            )
     elif len(header) > 1:
         raise InputError(
             f"the times file {p} has {len(header)} columns but no header; keep one column of times "
