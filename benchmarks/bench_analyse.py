@@ -17,6 +17,7 @@ HTML report (figures, phase movie) is timed apart.
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import pathlib
 import subprocess
@@ -78,8 +79,6 @@ def main() -> None:
     ap.add_argument("--skip-report", action="store_true", help="do not time the run that writes the report")
     args = ap.parse_args()
 
-    import numpy as np
-
     from waves import io, synthetic
     from waves.render import DarkfieldStyle
 
@@ -114,6 +113,8 @@ def main() -> None:
     w_wall, w_peak, w_out = _peak_of(waves_cmd)
     print("waves analyse:")
     print("  " + w_out.replace("\n", "\n  "))
+    steps = json.loads((tmp / "out" / "summary.json").read_text())["analysis"].get("step_seconds", {})
+    print("  cost of each step (s): " + ", ".join(f"{k.removesuffix('_s')} {v:.2f}" for k, v in steps.items()))
     rows = [("waves analyse", w_wall, w_peak)]
     if not args.skip_report:
         # the same with the HTML report (figures and phase movie): extra work, shown apart

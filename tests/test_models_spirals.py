@@ -8,13 +8,12 @@ import math
 
 import numpy as np
 import pytest
+from reference_spiral import spiral_periods
 from scipy.ndimage import uniform_filter
 
 from waves.models import get_model
 from waves.models.stimulus import Pacemaker
 from waves.simulate import simulate, upward_crossings
-
-from reference_spiral import spiral_periods
 
 
 def _settled_period(model, *, h, dt, minutes, transient_min, side, frame_interval_s):

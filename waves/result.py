@@ -235,6 +235,9 @@ def write_analysis(analysis, out_dir, *, source: dict) -> pathlib.Path:
                                  "window_centres_min": analysis.summary["analysis"]["window_centres_min"]})
     summary = dict(analysis.summary)
     summary["source"] = source
+    if analysis.timings_s:  # what each step cost, for benchmarks and for people waiting on big stacks
+        summary["analysis"] = {**summary.get("analysis", {}),
+                               "step_seconds": {k: round(float(v), 3) for k, v in analysis.timings_s.items()}}
     summary["files"] = sorted(
         [MAP_FILES[k] for k in MAP_FILES if k in analysis.maps]
         + [TABLE_FILES[k] for k in TABLE_FILES if k in analysis.tables]
