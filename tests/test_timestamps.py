@@ -291,3 +291,25 @@ def test_nominal_times_follow_frame_step(imagej_stack):
     np.testing.assert_allclose(stack.times_min, np.arange(5) * 5.0 / 60.0)
     assert stack.start_min == pytest.approx(2.5 / 60.0)
     assert math.isclose(stack.calibration.frame_interval_s, 5.0)
+
+
+def test_write_ome_stack_per_plane_times_read_by_tifffile_and_waves(tmp_path):
+    # truth: the times we wrote; tifffile's own OME-XML parser is the independent reader
+    from waves.units import Calibration
+
+    times = np.array([0.0, 10.0, 20.0, 40.0, 50.0, 90.0])  # frames 3 and 6-8 missing
+    data = np.arange(6 * 8 * 9, dtype=np.uint16).reshape(6, 8, 9)
+    cal = Calibration(2.5, 10.0, "options", "options")
+    path = io.write_ome_stack(tmp_path / "t.ome.tif", data, calibration=cal, times_s=times)
+    with tifffile.TiffFile(path) as tf:
+        ome = tifffile.xml2dict(tf.ome_metadata)
+        planes = ome["OME"]["Image"]["Pixels"]["Plane"]
+        assert [float(p["DeltaT"]) for p in planes] == times.tolist()
+        np.testing.assert_array_equal(tf.asarray(), data)
+    stack = io.read_stack(path)
+    np.testing.assert_allclose(stack.times_s, times)
+    assert stack.calibration.pixel_size_um == 2.5
+    with pytest.raises(InputError):
+        io.write_ome_stack(tmp_path / "t.tif", data, calibration=cal)
+    with pytest.raises(InputError):
+        io.write_ome_stack(tmp_path / "u.ome.tif", data, calibration=cal, times_s=times[:3])

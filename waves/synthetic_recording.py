@@ -242,29 +242,13 @@ def write_recording(rec: Recording, path: str | os.PathLike, *, time_increment: 
     `time_increment` the nominal frame interval is written as TimeIncrement too (a
     reader that prefers TimeIncrement then ignores the per-plane times).  Written to a
     temporary file and renamed, so a failure leaves no partial file."""
-    import tifffile  # only here: waves.io has no OME writer with per-plane times
+    from waves import io
 
     if not isinstance(rec, Recording):
         raise WavesError(f"write_recording needs a Recording, got {type(rec).__name__}")
     target = os.fspath(path)
     if not target.lower().endswith((".ome.tif", ".ome.tiff")):
         raise WavesError(f"an OME-TIFF path must end in .ome.tif or .ome.tiff, got {target!r}")
-    px = rec.calibration.pixel_size_um
-    n = rec.data.shape[0]
-    md: dict = {
-        "axes": "TYX",
-        "PhysicalSizeX": px, "PhysicalSizeXUnit": "µm",
-        "PhysicalSizeY": px, "PhysicalSizeYUnit": "µm",
-        "Plane": {"DeltaT": [float(t) for t in rec.times_s], "DeltaTUnit": ["s"] * n},
-    }
-    if time_increment:
-        md["TimeIncrement"] = rec.calibration.frame_interval_s
-        md["TimeIncrementUnit"] = "s"
-    tmp = f"{target}.tmp-{os.getpid()}.ome.tif"
-    try:
-        tifffile.imwrite(tmp, rec.data, ome=True, metadata=md, photometric="minisblack")
-        os.replace(tmp, target)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
+    io.write_ome_stack(target, rec.data, calibration=rec.calibration, times_s=rec.times_s,
+                       time_increment=time_increment)
     return target

@@ -52,7 +52,7 @@ from waves.io.files import atomic_output, file_sha256, write_json  # noqa: E402
 from waves.io.maps import read_map, read_metadata, write_map  # noqa: E402
 from waves.io.read import inspect_stack, iter_blocks, read_stack  # noqa: E402
 from waves.io.records import MapImage, Stack, StackInfo  # noqa: E402
-from waves.io.write import StackWriter, write_stack  # noqa: E402
+from waves.io.write import StackWriter, write_ome_stack, write_stack  # noqa: E402
 
 __all__ = [
     "StackInfo",
@@ -62,6 +62,7 @@ __all__ = [
     "read_stack",
     "iter_blocks",
     "write_stack",
+    "write_ome_stack",
     "write_map",
     "read_map",
     "StackWriter",

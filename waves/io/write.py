@@ -344,3 +344,47 @@ def write_stack(
             metadata=md, compression=comp,
         )
     return target
+
+
+def write_ome_stack(
+    path: Any,
+    data: Any,
+    *,
+    calibration: Calibration,
+    times_s: Any = None,
+    time_increment: bool = True,
+) -> pathlib.Path:
+    """Write a (t, y, x) stack as an OME-TIFF (axes TYX), atomically, with
+    PhysicalSizeX/Y and, when `times_s` is given, one Plane per frame whose
+    DeltaT (s) is that frame's acquisition time (how microscopes record
+    dropped frames and irregular intervals).  With `time_increment` the
+    calibration's frame interval is written as TimeIncrement too.
+
+    The path must end in .ome.tif or .ome.tiff; uint8, uint16 and float32
+    are stored as given."""
+    _check_calibration(calibration)
+    target = pathlib.Path(os.fspath(path))
+    if not target.name.lower().endswith((".ome.tif", ".ome.tiff")):
+        raise InputError(f"an OME-TIFF path must end in .ome.tif or .ome.tiff, got {str(target)!r}")
+    arr = np.asanyarray(data)
+    if arr.ndim != 3 or min(arr.shape) < 1:
+        raise InputError(f"a stack must be a non-empty (t, y, x) array, got shape {arr.shape}")
+    if arr.dtype not in (np.uint8, np.uint16, np.float32):
+        raise InputError(f"an OME stack is written as uint8, uint16 or float32, got {arr.dtype}")
+    px = calibration.pixel_size_um
+    md: dict = {
+        "axes": "TYX",
+        "PhysicalSizeX": px, "PhysicalSizeXUnit": "µm",
+        "PhysicalSizeY": px, "PhysicalSizeYUnit": "µm",
+    }
+    if times_s is not None:
+        t = np.asarray(times_s, dtype=np.float64)
+        if t.shape != (arr.shape[0],) or not np.isfinite(t).all():
+            raise InputError(f"times_s must hold one finite time per frame ({arr.shape[0]}), got shape {t.shape}")
+        md["Plane"] = {"DeltaT": [float(v) for v in t], "DeltaTUnit": ["s"] * len(t)}
+    if time_increment:
+        md["TimeIncrement"] = calibration.frame_interval_s
+        md["TimeIncrementUnit"] = "s"
+    with atomic_output(target, "wb") as fh:
+        tifffile.imwrite(fh, np.asarray(arr), ome=True, metadata=md, photometric="minisblack")
+    return target
