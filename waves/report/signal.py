@@ -3,7 +3,7 @@
 A results folder holds maps and tables, not the phase movie.  The phase
 snapshot, the kymograph and the movie need it, so this module recomputes
 what they need from the original stack and the summary, the same way the
-analysis does (DESIGN.md, waves/analyse.py): the stack is binned to the
+analysis does (DESIGN.md, waves/analyse/clean.py): the stack is binned to the
 analysis grid (`summary['analysis']['grid']['bin']`), divided by the
 illumination gain of the mean image (when the analysis flattened), smoothed
 in space by the analysis's sigma, and turned into an analytic signal with the
