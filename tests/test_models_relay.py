@@ -23,7 +23,6 @@ from waves.models.relay import (
     LENGTH_UNIT_UM,
     SPEC,
     RelayParams,
-    _well_mixed_steps,
     broken_wave_state,
     excitation_from_g,
     oscillation_period,
@@ -33,6 +32,7 @@ from waves.models.relay import (
     steady_states,
     well_mixed_run,
 )
+from waves.models.relay_kinetics import _well_mixed_steps
 from waves.models.stimulus import disc
 
 # --------------------------------------------------------------------------- independent reference
