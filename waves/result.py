@@ -143,7 +143,11 @@ def analyse_file(
         options=options if options is not None else AnalysisOptions(),
         scratch_dir=scratch,
         progress=progress,
+        times_s=stack.times_s,
     )
+    rec = analysis.summary.get("recording")
+    if rec is not None:
+        rec["times_origin"] = stack.times_origin  # the file's source ('ome', ...), 'csv' or 'nominal'
     _to_file_coordinates(analysis, stack)
     analysis.summary["source"] = source_record(path, stack)
     # how the stack was read, so pictures can re-read the same frames
@@ -195,6 +199,8 @@ def _to_file_coordinates(analysis, stack) -> None:
     for key in ("spiral_cores", "centres", "period_timecourse"):
         for rec in s.get(key) or ():
             shift(rec)
+    for gap in (s.get("recording") or {}).get("gaps") or ():
+        gap["start_min"], gap["stop_min"] = gap["start_min"] + dt, gap["stop_min"] + dt
     an = s.get("analysis") or {}
     if an.get("window_centres_min") is not None:
         an["window_centres_min"] = [t + dt for t in an["window_centres_min"]]
