@@ -111,10 +111,13 @@ def analyse_file(
     pixel_size_um: float | None = None,
     frame_interval_s: float | None = None,
     progress: bool = False,
+    times_csv=None,
 ):
     """Read a stack, analyse it and, when `out` is given, write the results
     folder (summary.json, CSV tables, calibrated maps).  Returns the
     `waves.analyse.Analysis` with its summary's `source` filled in.
+    times_csv: a CSV of per-frame times (s), see `waves.io.read_stack`; the
+    stack's times (the file's own, else nominal) drive the time axis.
 
     Nothing is written until the analysis has finished, so a failure leaves
     an earlier result in `out` as it was.
@@ -130,6 +133,7 @@ def analyse_file(
         pixel_size_um=pixel_size_um,
         frame_interval_s=frame_interval_s,
         min_frames=8,
+        times_csv=times_csv,
     )
     scratch = None
     if out is not None:

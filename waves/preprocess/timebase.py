@@ -23,7 +23,7 @@ import numpy as np
 
 from waves.errors import InputError
 
-__all__ = ["GAP_MIN_FRAMES", "Timebase", "build_timebase", "GridResampler", "resample", "runs"]
+__all__ = ["describe_times", "GAP_MIN_FRAMES", "Timebase", "build_timebase", "GridResampler", "resample", "runs"]
 
 # A run of this many consecutive missing frames is a gap (invalid for
 # measurements); shorter runs are interpolated and kept.  One or two missing
@@ -247,3 +247,18 @@ def resample(frames: np.ndarray, tb: Timebase) -> np.ndarray:
     r = GridResampler(tb)
     _, out = r.push(0, np.asarray(frames, dtype=np.float32))
     return out
+
+
+def describe_times(times_s, interval_s: float, origin: str) -> str:
+    """One line about a stack's frame times: the grid, dropped frames, gaps."""
+    tb = build_timebase(times_s, nominal_interval_s=interval_s)
+    text = f"{origin}; {tb.n_recorded} recorded frames on a grid of {tb.n_grid} x {tb.interval_s:g} s"
+    n_drop = int(tb.dropped.size)
+    if not n_drop:
+        return text + "; no dropped frames"
+    gaps = tb.gaps
+    dt_min = tb.interval_s / 60.0
+    text += f"; {n_drop} dropped frame{'s' if n_drop > 1 else ''}, {len(gaps)} gap{'s' if len(gaps) != 1 else ''}"
+    if gaps:
+        text += " (" + ", ".join(f"{b - a} frames at {a * dt_min:.1f}-{b * dt_min:.1f} min" for a, b in gaps) + ")"
+    return text
