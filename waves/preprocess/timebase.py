@@ -115,6 +115,28 @@ def _check_times(times_s) -> np.ndarray:
     return t
 
 
+def _slots(rel: np.ndarray, step0: float) -> tuple[np.ndarray, float]:
+    """Grid slot of every frame and the fitted interval: frames in order, each
+    on the nearest slot of the interval fitted so far (least squares through
+    frame 0), so a small error of the first guess does not pile up along a
+    long movie.  InputError when two frames fall on one slot."""
+    slot = np.zeros(rel.size, dtype=np.int64)
+    sxy = sxx = 0.0
+    step = step0
+    for i in range(1, rel.size):
+        k = int(np.rint(rel[i] / step))
+        if k <= slot[i - 1]:
+            raise InputError(
+                f"frames {i - 1} and {i} (at {rel[i - 1]:g} s and {rel[i]:g} s) fall on one slot of the "
+                f"{step:g} s frame grid: the times are too irregular for one frame interval"
+            )
+        slot[i] = k
+        sxy += rel[i] * k
+        sxx += float(k) * k
+        step = sxy / sxx
+    return slot, float(step)
+
+
 def build_timebase(times_s, *, nominal_interval_s: float | None = None, excluded=None) -> Timebase:
     """The uniform grid of recorded frames at times `times_s` (s, increasing).
 
@@ -125,19 +147,17 @@ def build_timebase(times_s, *, nominal_interval_s: float | None = None, excluded
     """
     t = _check_times(times_s)
     n = t.size
-    step = float(np.median(np.diff(t)))
-    if nominal_interval_s is not None and nominal_interval_s > 0:
-        if abs(nominal_interval_s - step) <= INTERVAL_AGREEMENT * step:
-            step = float(nominal_interval_s)
     rel = t - t[0]
-    slot = np.rint(rel / step).astype(np.int64)
-    same = np.flatnonzero(np.diff(slot) == 0)
-    if same.size:
-        k = int(same[0])
-        raise InputError(
-            f"frames {k} and {k + 1} (at {rel[k]:g} s and {rel[k + 1]:g} s) fall on one slot of the "
-            f"{step:g} s frame grid: the times are too irregular for one frame interval"
-        )
+    median = float(np.median(np.diff(t)))
+    slot, fitted = _slots(rel, median)
+    # the interval: the calibration's when it agrees and puts every frame on the
+    # same slot, else the median step if it does, else the fitted step
+    step = fitted
+    for cand in (nominal_interval_s, median):
+        if cand is not None and cand > 0 and abs(cand - fitted) <= INTERVAL_AGREEMENT * fitted:
+            if np.array_equal(np.rint(rel / cand).astype(np.int64), slot):
+                step = float(cand)
+                break
     n_grid = int(slot[-1]) + 1
     if excluded is None:
         bad = np.zeros(n, dtype=bool)
