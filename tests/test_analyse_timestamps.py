@@ -127,3 +127,54 @@ def test_spiral_core_across_a_gap(tmp_path, seed):
     assert invalid  # the gap
     frames = set(np.asarray(a.tables["cores_per_frame"]["frame"]).astype(int).tolist())
     assert not frames & invalid
+
+
+def test_cli_times_csv_on_info_and_analyse(tmp_path, capsys):
+    """A plain ImageJ TIFF (no per-frame times) and --times FILE.csv: `waves info`
+    names the dropped frames and the gap, `waves analyse` uses them (synthetic
+    truth for the frames, gap and period)."""
+    import json
+
+    from waves import io
+    from waves.cli import main
+
+    rec = _rec(CLASS["drop5_gap8"], 4)
+    tif = tmp_path / "plain.tif"
+    io.write_stack(tif, rec.data, calibration=rec.calibration)
+    csv = tmp_path / "times.csv"
+    csv.write_text("time_s\n" + "\n".join(f"{t:.3f}" for t in rec.times_s) + "\n")
+    assert main(["info", str(tif), "--times", str(csv)]) == 0
+    out = capsys.readouterr().out
+    n_drop = len(rec.truth.dropped_frames)
+    (a0, b0), = rec.truth.gaps
+    assert f"{n_drop} dropped frames, 1 gap (8 frames at {a0:.1f}-{b0:.1f} min)" in out
+    assert main(["analyse", str(tif), "--times", str(csv), "--out", str(tmp_path / "out"), "--quiet",
+                 "--no-report"]) == 0
+    s = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert s["recording"]["times_origin"] == "csv"
+    assert s["recording"]["dropped_frames"] == list(rec.truth.dropped_frames)
+    assert abs(s["period_min"]["median"] / PERIOD - 1) < 0.05
+    # without the times the same file has no dropped frames to know of
+    assert main(["analyse", str(tif), "--out", str(tmp_path / "nominal"), "--quiet", "--no-report"]) == 0
+    s0 = json.loads((tmp_path / "nominal" / "summary.json").read_text())
+    assert s0["recording"]["times_origin"] == "nominal" and s0["recording"]["dropped_frames"] == []
+
+
+def test_report_pictures_are_on_the_analysis_time_grid(tmp_path):
+    """The report recomputes the phase from the stack: with dropped frames it must
+    use the analysis's grid, so its kymograph spans the grid's frames and
+    oscillates at the true period (synthetic truth; on the recorded frames it
+    would read ~10 % short)."""
+    from waves.measure.period import spectral_period
+    from waves.report.signal import recompute_phase
+
+    rec = _rec(CLASS["drop10"], 2)
+    path = write_recording(rec, tmp_path / "rec.ome.tif")
+    a = analyse_file(path, out=tmp_path / "out")
+    s = a.summary
+    pf = recompute_phase(path, s)
+    trim = s["analysis"]["trimmed_frames_each_end"]
+    assert pf.kymograph.shape[0] == SHAPE[0] - 2 * trim  # grid frames kept, not recorded ones
+    dt_min = DT / 60.0
+    per = spectral_period(pf.kymograph, passband=(dt_min / 8.0, dt_min / 2.0)) * dt_min
+    assert abs(np.nanmedian(per) / PERIOD - 1) < 0.03  # synthetic truth

@@ -133,6 +133,15 @@ def _human_bytes(n: float) -> str:
     raise AssertionError("unreachable")
 
 
+def _duration_line(t: int, dt_s: float, times_s) -> str:
+    """Duration from the recorded times when frames are missing, else t x dt."""
+    nominal = t * dt_s
+    span = float(times_s[-1]) + dt_s if times_s is not None and len(times_s) else nominal
+    if abs(span - nominal) <= 0.5 * dt_s:
+        return f"duration        {nominal / 60.0:.1f} min ({t} frames x {dt_s:g} s)"
+    return f"duration        {span / 60.0:.1f} min ({t} recorded frames; {t * dt_s / 60.0:.1f} min at {dt_s:g} s each)"
+
+
 def _cmd_info(args: argparse.Namespace) -> int:
     from waves import io
 
@@ -162,8 +171,7 @@ def _cmd_info(args: argparse.Namespace) -> int:
         lines += [
             f"pixel size      {cal.pixel_size_um:g} um  (from {cal.pixel_size_origin})",
             f"frame interval  {cal.frame_interval_s:g} s  (from {cal.frame_interval_origin})",
-            f"duration        {t * cal.frame_interval_min:.1f} min "
-            f"({t} frames x {cal.frame_interval_s:g} s)",
+            _duration_line(t, cal.frame_interval_s, info.times_s),
             f"field size      {nx * cal.pixel_size_um / 1000:.2f} mm x "
             f"{ny * cal.pixel_size_um / 1000:.2f} mm",
         ]

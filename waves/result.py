@@ -167,7 +167,13 @@ def analyse_file(
         "channel": channel,
         "zslice": zslice,
     }
-    analysis.summary["warnings"] = list(stack.warnings) + list(analysis.summary["warnings"])
+    stack_warnings = list(stack.warnings)
+    if rec is not None and rec["times_origin"] != "nominal":
+        # irregular recorded times are resolved by the time grid: a note, not a warning
+        irregular = [w for w in stack_warnings if w.startswith("frame times (") and " are irregular" in w]
+        stack_warnings = [w for w in stack_warnings if w not in irregular]
+        analysis.summary.setdefault("analysis", {}).setdefault("notes", []).extend(irregular)
+    analysis.summary["warnings"] = stack_warnings + list(analysis.summary["warnings"])
     if out is not None:
         write_analysis(analysis, out, source=analysis.summary["source"])
     return analysis

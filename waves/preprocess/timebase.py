@@ -23,7 +23,7 @@ import numpy as np
 
 from waves.errors import InputError
 
-__all__ = ["describe_times", "GAP_MIN_FRAMES", "Timebase", "build_timebase", "GridResampler", "resample", "runs"]
+__all__ = ["describe_times", "grid_from_record", "GAP_MIN_FRAMES", "Timebase", "build_timebase", "GridResampler", "resample", "runs"]
 
 # A run of this many consecutive missing frames is a gap (invalid for
 # measurements); shorter runs are interpolated and kept.  One or two missing
@@ -282,3 +282,21 @@ def describe_times(times_s, interval_s: float, origin: str) -> str:
     if gaps:
         text += " (" + ", ".join(f"{b - a} frames at {a * dt_min:.1f}-{b * dt_min:.1f} min" for a, b in gaps) + ")"
     return text
+
+
+def grid_from_record(record: dict) -> Timebase | None:
+    """The timebase of an analysis from its summary's `recording` block (grid
+    interval, dropped and excluded grid frames), or None when the grid is the
+    recording itself.  Recorded frames sit on their slots' exact times, so
+    weights follow the grid (pictures re-made from a results folder)."""
+    if not record:
+        return None
+    n_grid = int(record.get("n_grid_frames", 0))
+    dropped = np.asarray(record.get("dropped_frames") or [], dtype=np.int64)
+    excluded_grid = np.asarray(record.get("excluded_frames") or [], dtype=np.int64)
+    if n_grid <= 0 or (dropped.size == 0 and excluded_grid.size == 0):
+        return None
+    slots = np.setdiff1d(np.arange(n_grid), dropped)
+    step = float(record["frame_interval_s"])
+    excluded = np.isin(slots, excluded_grid)
+    return build_timebase(slots * step, nominal_interval_s=step, excluded=excluded)
