@@ -188,3 +188,42 @@ def test_describe_times_names_drops_and_gaps():
     text = describe_times(t, DT, "ome")
     assert "35 recorded frames on a grid of 40 x 15 s" in text
     assert "5 dropped frames, 1 gap (4 frames at 5.0-6.0 min)" in text
+
+
+def test_settle_margins_widen_gaps_only():
+    from waves.analyse.segments import settle_margins
+
+    valid = np.ones(60, dtype=bool)
+    valid[10] = False  # an excluded single frame: not widened
+    valid[20:28] = False  # an 8-frame gap: widened by 8 (shorter than the period)
+    valid[45:48] = False  # a 3-frame gap: widened by 3
+    out = settle_margins(valid, period_frames=16.0, min_run=3)
+    # exact
+    assert np.flatnonzero(~out).tolist() == [10] + list(range(12, 36)) + list(range(42, 51))
+    valid[20:40] = False  # a 20-frame gap: widened by one period (16)
+    out = settle_margins(valid, period_frames=16.0, min_run=3)
+    assert (~out[4:56]).all() and out[3] and out[56]  # exact: 20..40 widened by 16 each side
+
+
+def test_combining_stretches_counts_cycles():
+    from waves.analyse.segments import combine_stretches, measure_stretches
+
+    nan = np.nan
+    w = 2 * np.pi / 8.0
+    per = np.array([[10.0, nan, nan], [20.0, nan, nan]])
+    om = np.array([[2 * np.pi / 10, w, w], [2 * np.pi / 20, w, w]])
+    sp = np.array([[1.0, 2.0, 2.0], [3.0, 2.0, 2.0]])
+    d = np.array([[0.1, 0.0, 0.0], [0.3, 0.0, 0.0]])
+    p, s, dd, c, o = combine_stretches(per, sp, d, sp, om, [50, 40])
+    # exact: 5 + 2 whole cycles in 90 frames; speeds weighted by length
+    assert p[0] == pytest.approx(90 / 7) and s[0] == pytest.approx((50 * 1 + 40 * 3) / 90)
+    assert dd[0] == pytest.approx(np.arctan2(50 * np.sin(0.1) + 40 * np.sin(0.3), 50 * np.cos(0.1) + 40 * np.cos(0.3)))
+    # no stretch with two whole cycles: 2 pi / omega, if the stretches span two periods
+    assert p[1] == pytest.approx(8.0)
+    p2, *_ = combine_stretches(per[:, 1:], sp[:, 1:], d[:, 1:], sp[:, 1:], om[:, 1:], [7, 7])
+    assert np.isnan(p2).all()  # 14 frames < 2 x 8
+    # single bad frames do not split the cycle count; a 3-frame run does
+    valid = np.ones(40, dtype=bool)
+    valid[[5, 12, 13]] = False
+    valid[25:28] = False
+    assert measure_stretches(valid) == [(0, 25), (28, 40)]

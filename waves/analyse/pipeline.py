@@ -11,10 +11,10 @@ import numpy as np
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
 from waves.analyse.options import PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
-from waves.analyse.segments import valid_windows
+from waves.analyse.segments import settle_margins, valid_windows
 from waves.analyse.strips import _correct_smoothing_bias, _measure_strips, _strip_rows
 from waves.analyse.summary import _empty_result, _grid, _summarise
-from waves.analyse.timeaxis import recording_block, time_axis
+from waves.analyse.timeaxis import GAP_MIN_FRAMES, margin_record, recording_block, time_axis
 from waves.errors import InputError, WavesError
 from waves.phase.analytic import passband_from_periods
 from waves.units import Calibration
@@ -123,7 +123,10 @@ def analyse_movie(
             )
         win = max(4, min(int(round(options.window_periods * period0)), usable))
         step = max(1, win // 2)
-        valid_phase = valid_grid[trim : trim + usable]
+        # no measurement next to a gap either, while the band-pass settles
+        measured = settle_margins(valid_grid, period_frames=period0, min_run=GAP_MIN_FRAMES)
+        margin_record(recording, valid_grid & ~measured, calibration=cal, notes=notes)
+        valid_phase = measured[trim : trim + usable]
         if valid_phase.all():
             windows = [(s, s + win) for s in range(0, usable - win + 1, step)]
         else:  # windows only inside valid stretches

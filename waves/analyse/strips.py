@@ -14,7 +14,7 @@ from waves.analyse.segments import (
     combine_stretches,
     drop_invalid_arrivals,
     intervals_outside,
-    stretches,
+    measure_stretches,
 )
 from waves.measure.fused import pixel_measures
 from waves.measure.speed import (
@@ -74,7 +74,7 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
     nt, ny, nx = movie.shape
     n = len(windows) + 1
     partial = valid is not None and not np.all(valid)
-    parts = stretches(valid) if partial else []
+    parts = measure_stretches(valid) if partial else []
     maps = _Maps(
         amplitude=np.full((ny, nx), np.nan, np.float32),
         period=np.full((n, ny, nx), np.nan, np.float32),

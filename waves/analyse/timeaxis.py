@@ -81,6 +81,7 @@ def recording_block(tb: Timebase | None, *, n_frames: int, calibration: Calibrat
             "excluded_frames": [],
             "interpolated_frames": [],
             "invalid_frames": [],
+            "gap_margin_frames": [],
             "gap_min_frames": GAP_MIN_FRAMES,
         }
     dt_min = tb.interval_s / 60.0
@@ -94,5 +95,18 @@ def recording_block(tb: Timebase | None, *, n_frames: int, calibration: Calibrat
         "excluded_frames": np.flatnonzero(tb.excluded).tolist(),
         "interpolated_frames": tb.interpolated.tolist(),
         "invalid_frames": np.flatnonzero(~tb.valid).tolist(),
+        "gap_margin_frames": [],  # filled once the period is known (margin_record)
         "gap_min_frames": GAP_MIN_FRAMES,
     }
+
+
+def margin_record(recording: dict, margin: np.ndarray, *, calibration: Calibration, notes: list) -> None:
+    """Put the recorded frames left unmeasured next to gaps (band-pass
+    settling) into the recording block, with a note."""
+    idx = np.flatnonzero(margin)
+    recording["gap_margin_frames"] = idx.tolist()
+    if idx.size:
+        notes.append(
+            f"{idx.size} recorded frames next to gaps are not measured either: the band-pass filter needs "
+            "about a period to settle after the interpolated stretch"
+        )
