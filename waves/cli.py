@@ -17,6 +17,7 @@ from waves import __version__
 from waves.cli_common import (
     add_analysis_options,
     add_calibration_options,
+    add_times_option,
     analysis_options_from_args,
     parse_frames,
     summary_lines,
@@ -59,6 +60,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p_info.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
     add_calibration_options(p_info)
+    add_times_option(p_info)
     _add_selection_options(p_info)
     p_info.set_defaults(func=_cmd_info)
 
@@ -71,6 +73,7 @@ def build_parser() -> argparse.ArgumentParser:
     p_an.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
     p_an.add_argument("--out", required=True, metavar="DIR", help="folder for the results")
     add_calibration_options(p_an)
+    add_times_option(p_an)
     _add_selection_options(p_an)
     add_analysis_options(p_an)
     p_an.add_argument("--quiet", action="store_true", help="no progress bars")
@@ -130,6 +133,15 @@ def _human_bytes(n: float) -> str:
     raise AssertionError("unreachable")
 
 
+def _duration_line(t: int, dt_s: float, times_s) -> str:
+    """Duration from the recorded times when frames are missing, else t x dt."""
+    nominal = t * dt_s
+    span = float(times_s[-1]) + dt_s if times_s is not None and len(times_s) else nominal
+    if abs(span - nominal) <= 0.5 * dt_s:
+        return f"duration        {nominal / 60.0:.1f} min ({t} frames x {dt_s:g} s)"
+    return f"duration        {span / 60.0:.1f} min ({t} recorded frames; {t * dt_s / 60.0:.1f} min at {dt_s:g} s each)"
+
+
 def _cmd_info(args: argparse.Namespace) -> int:
     from waves import io
 
@@ -139,6 +151,7 @@ def _cmd_info(args: argparse.Namespace) -> int:
         zslice=args.zslice,
         pixel_size_um=args.pixel_size_um,
         frame_interval_s=args.frame_interval_s,
+        times_csv=args.times_csv,
     )
     t, ny, nx = info.shape_tyx
     lines = [
@@ -158,11 +171,18 @@ def _cmd_info(args: argparse.Namespace) -> int:
         lines += [
             f"pixel size      {cal.pixel_size_um:g} um  (from {cal.pixel_size_origin})",
             f"frame interval  {cal.frame_interval_s:g} s  (from {cal.frame_interval_origin})",
-            f"duration        {t * cal.frame_interval_min:.1f} min "
-            f"({t} frames x {cal.frame_interval_s:g} s)",
+            _duration_line(t, cal.frame_interval_s, info.times_s),
             f"field size      {nx * cal.pixel_size_um / 1000:.2f} mm x "
             f"{ny * cal.pixel_size_um / 1000:.2f} mm",
         ]
+    if cal is not None and info.times_s is not None:
+        from waves.errors import InputError
+        from waves.preprocess.timebase import describe_times
+
+        try:
+            lines.append(f"frame times     {describe_times(info.times_s, cal.frame_interval_s, info.times_origin)}")
+        except InputError as exc:  # info describes; the analysis refuses such times
+            lines.append(f"frame times     {info.times_origin}; UNUSABLE: {exc}")
     whole = t * ny * nx * 4 * 3  # float32 signal + phase + amplitude, all in memory
     tile = info.analysis_memory_bytes
     lines.append(
@@ -189,6 +209,7 @@ def _cmd_analyse(args: argparse.Namespace) -> int:
         zslice=args.zslice,
         pixel_size_um=args.pixel_size_um,
         frame_interval_s=args.frame_interval_s,
+        times_csv=args.times_csv,
         progress=not args.quiet,
     )
     summary_path = pathlib.Path(args.out) / "summary.json"

@@ -11,6 +11,7 @@ from waves.errors import WavesError
 __all__ = [
     "add_calibration_options",
     "add_analysis_options",
+    "add_times_option",
     "analysis_options_from_args",
     "parse_frames",
     "parse_settings",
@@ -32,6 +33,17 @@ def add_calibration_options(p: argparse.ArgumentParser) -> None:
         type=float,
         metavar="S",
         help="seconds between frames; overrides or supplies the file's calibration",
+    )
+
+
+def add_times_option(p: argparse.ArgumentParser) -> None:
+    """--times FILE.csv: per-frame acquisition times (`waves info`, `waves analyse`)."""
+    p.add_argument(
+        "--times",
+        dest="times_csv",
+        metavar="FILE.csv",
+        help="CSV of the acquisition time (s) of every frame of the file; replaces the file's own "
+        "per-frame times (dropped frames and gaps are found from them)",
     )
 
 

@@ -111,10 +111,13 @@ def analyse_file(
     pixel_size_um: float | None = None,
     frame_interval_s: float | None = None,
     progress: bool = False,
+    times_csv=None,
 ):
     """Read a stack, analyse it and, when `out` is given, write the results
     folder (summary.json, CSV tables, calibrated maps).  Returns the
     `waves.analyse.Analysis` with its summary's `source` filled in.
+    times_csv: a CSV of per-frame times (s), see `waves.io.read_stack`; the
+    stack's times (the file's own, else nominal) drive the time axis.
 
     Nothing is written until the analysis has finished, so a failure leaves
     an earlier result in `out` as it was.
@@ -130,6 +133,7 @@ def analyse_file(
         pixel_size_um=pixel_size_um,
         frame_interval_s=frame_interval_s,
         min_frames=8,
+        times_csv=times_csv,
     )
     scratch = None
     if out is not None:
@@ -143,7 +147,11 @@ def analyse_file(
         options=options if options is not None else AnalysisOptions(),
         scratch_dir=scratch,
         progress=progress,
+        times_s=stack.times_s,
     )
+    rec = analysis.summary.get("recording")
+    if rec is not None:
+        rec["times_origin"] = stack.times_origin  # the file's source ('ome', ...), 'csv' or 'nominal'
     _to_file_coordinates(analysis, stack)
     analysis.summary["source"] = source_record(path, stack)
     # how the stack was read, so pictures can re-read the same frames
@@ -159,7 +167,13 @@ def analyse_file(
         "channel": channel,
         "zslice": zslice,
     }
-    analysis.summary["warnings"] = list(stack.warnings) + list(analysis.summary["warnings"])
+    stack_warnings = list(stack.warnings)
+    if rec is not None and rec["times_origin"] != "nominal":
+        # irregular recorded times are resolved by the time grid: a note, not a warning
+        irregular = [w for w in stack_warnings if w.startswith("frame times (") and " are irregular" in w]
+        stack_warnings = [w for w in stack_warnings if w not in irregular]
+        analysis.summary.setdefault("analysis", {}).setdefault("notes", []).extend(irregular)
+    analysis.summary["warnings"] = stack_warnings + list(analysis.summary["warnings"])
     if out is not None:
         write_analysis(analysis, out, source=analysis.summary["source"])
     return analysis
@@ -195,6 +209,8 @@ def _to_file_coordinates(analysis, stack) -> None:
     for key in ("spiral_cores", "centres", "period_timecourse"):
         for rec in s.get(key) or ():
             shift(rec)
+    for gap in (s.get("recording") or {}).get("gaps") or ():
+        gap["start_min"], gap["stop_min"] = gap["start_min"] + dt, gap["stop_min"] + dt
     an = s.get("analysis") or {}
     if an.get("window_centres_min") is not None:
         an["window_centres_min"] = [t + dt for t in an["window_centres_min"]]

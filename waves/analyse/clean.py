@@ -87,9 +87,11 @@ def clean_buffer(shape: tuple[int, int, int], *, folder: pathlib.Path | None = N
     return _Movie(tuple(int(v) for v in shape), in_memory=nbytes <= max_memory_bytes, folder=folder)
 
 
-def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar) -> np.ndarray:
+def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=None) -> np.ndarray:
     """Read the recording once: bin every frame block into `movie`, refuse
-    non-finite or flat movies, and return the temporal-mean image (binned)."""
+    non-finite or flat movies, and return the temporal-mean image (binned).
+    With a `waves.preprocess.GridResampler` the binned frames are put on its
+    uniform time grid (`movie` has the grid's frames) as they are read."""
     nt = data.shape[0]
     mean = np.zeros(movie.shape[1:], dtype=np.float64)
     lo, hi = np.inf, -np.inf
@@ -102,14 +104,18 @@ def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar) -> np.ndarra
                 f"frames {', '.join(map(str, bad[:5]))}{' ...' if len(bad) > 5 else ''} hold NaN or "
                 "infinite values; replace them or choose other frames with --frames"
             )
-        mean += b.sum(axis=0, dtype=np.float64)
         lo = min(lo, float(b.min()))
         hi = max(hi, float(b.max()))
-        movie.write(t0, b)
+        w0 = t0
+        if resampler is not None:
+            w0, b = resampler.push(t0, b)
+        mean += b.sum(axis=0, dtype=np.float64)
+        if len(b):
+            movie.write(w0, b)
         bar.update(1)
     if hi - lo <= 0:
         raise InputError(f"the movie is flat: every pixel of every frame is {lo:g}; there are no waves to measure")
-    return (mean / nt).astype(np.float32)
+    return (mean / movie.shape[0]).astype(np.float32)
 
 
 def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,

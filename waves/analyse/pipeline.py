@@ -11,8 +11,10 @@ import numpy as np
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
 from waves.analyse.options import PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
+from waves.analyse.segments import settle_margins, valid_windows
 from waves.analyse.strips import _correct_smoothing_bias, _measure_strips, _strip_rows
 from waves.analyse.summary import _empty_result, _grid, _summarise
+from waves.analyse.timeaxis import GAP_MIN_FRAMES, margin_record, recording_block, time_axis
 from waves.errors import InputError, WavesError
 from waves.phase.analytic import passband_from_periods
 from waves.units import Calibration
@@ -27,9 +29,19 @@ def analyse_movie(
     options: AnalysisOptions = AnalysisOptions(),  # noqa: B008 - a frozen dataclass (immutable)
     scratch_dir: pathlib.Path | None = None,
     progress: bool = False,
+    times_s=None,
+    valid_frames=None,
 ) -> Analysis:
     """Analyse a (t, y, x) movie (memory-mapped or in memory) of the given
     calibration, e.g. `waves.io.read_stack(...).data` or a synthetic movie.
+
+    times_s       (t,) acquisition time of every frame (s), e.g. a stack's
+                  `times_s`; None: frame i at i x frame interval.  The movie is
+                  resampled onto a uniform grid (waves.preprocess.timebase):
+                  dropped frames are interpolated, gaps are left out of the
+                  measurements.
+    valid_frames  (t,) bool, False for frames other steps declare bad: they are
+                  replaced by interpolation and left out of the measurements.
 
     When the cleaned movie does not fit half the memory budget it is kept in
     a scratch file in `scratch_dir` (default: the system's temporary folder)
@@ -44,9 +56,15 @@ def analyse_movie(
     nt, ny, nx = (int(v) for v in data.shape)
     if ny < 8 or nx < 8:
         raise InputError(f"frames of {ny} x {nx} pixels are too small to analyse; need at least 8 x 8")
-    dt_min = cal.frame_interval_min
     warnings: list[str] = []
     notes: list[str] = []
+    # the time axis: a uniform grid of frames (identity for a regular movie)
+    tb, resampler, cal = time_axis(times_s, valid_frames, n_frames=nt, calibration=cal, notes=notes,
+                                   warnings=warnings)
+    recording = recording_block(tb, n_frames=nt, calibration=cal)
+    nt = tb.n_grid if tb is not None else nt
+    valid_grid = tb.valid if tb is not None else np.ones(nt, dtype=bool)
+    dt_min = cal.frame_interval_min
     passband_user = passband_from_periods(options.period_band_min, frame_interval_s=cal.frame_interval_s, n_frames=nt)
     budget = options.memory_budget_mb * 1e6
     timings: dict = {}
@@ -68,7 +86,7 @@ def analyse_movie(
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
-        mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar)
+        mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, resampler=resampler)
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes)
         bar.close()
@@ -89,7 +107,9 @@ def analyse_movie(
                 )
             )
             grid = _grid(cal, factor)
-            return _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty = _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty.summary["recording"] = recording
+            return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
         trim = int(math.ceil(0.75 * period0))
@@ -103,7 +123,14 @@ def analyse_movie(
             )
         win = max(4, min(int(round(options.window_periods * period0)), usable))
         step = max(1, win // 2)
-        windows = [(s, s + win) for s in range(0, usable - win + 1, step)]
+        # no measurement next to a gap either, while the band-pass settles
+        measured = settle_margins(valid_grid, period_frames=period0, min_run=GAP_MIN_FRAMES)
+        margin_record(recording, valid_grid & ~measured, calibration=cal, notes=notes)
+        valid_phase = measured[trim : trim + usable]
+        if valid_phase.all():
+            windows = [(s, s + win) for s in range(0, usable - win + 1, step)]
+        else:  # windows only inside valid stretches
+            windows = valid_windows(valid_phase, win=win, step=step)
         maps = _measure_strips(
             movie,
             passband=passband,
@@ -114,6 +141,7 @@ def analyse_movie(
             lag=lag,
             workers=options.workers,
             progress=progress,
+            valid=valid_phase,
         )
         _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor)
         timings["strips_s"] = time.perf_counter() - t0
@@ -136,7 +164,9 @@ def analyse_movie(
         mean_b=mean_b,
         warnings=warnings,
         notes=notes,
+        frame_ok=valid_phase,
     )
+    result[0]["recording"] = recording
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),

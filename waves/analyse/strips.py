@@ -10,6 +10,12 @@ import numpy as np
 from waves import preprocess
 from waves.analyse.clean import _Movie, _progress
 from waves.analyse.options import FIT_RADIUS_PX, HALO_PX, MAX_SMOOTHING_CORRECTION
+from waves.analyse.segments import (
+    combine_stretches,
+    drop_invalid_arrivals,
+    intervals_outside,
+    measure_stretches,
+)
 from waves.measure.fused import pixel_measures
 from waves.measure.speed import (
     activation_fit_speed,
@@ -23,6 +29,7 @@ from waves.phase.analytic import (
     phase_and_amplitude,
 )
 from waves.phase.charge import plaquette_charge
+from waves.preprocess.timebase import runs
 
 
 @dataclass
@@ -60,9 +67,14 @@ def _phase(z: np.ndarray, lag: int | None) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, period_frames, lag, workers,
-                    progress):
+                    progress, valid=None):
+    """`valid` (phase frames, bool) or None: with invalid frames, the
+    whole-movie measures come from the valid stretches and arrivals inside
+    invalid frames are dropped (waves.analyse.segments)."""
     nt, ny, nx = movie.shape
     n = len(windows) + 1
+    partial = valid is not None and not np.all(valid)
+    parts = measure_stretches(valid) if partial else []
     maps = _Maps(
         amplitude=np.full((ny, nx), np.nan, np.float32),
         period=np.full((n, ny, nx), np.nan, np.float32),
@@ -83,19 +95,27 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         phase, amp = _phase(z, lag)
         del z
         inner = slice(r0 - a0, r1 - a0)
-        pm = pixel_measures(phase, amp, rows=(inner.start, inner.stop), windows=windows)
+        pm = pixel_measures(phase, amp, rows=(inner.start, inner.stop), windows=list(windows) + parts)
         maps.amplitude[r0:r1] = pm.amplitude
-        maps.period[:, r0:r1] = pm.period_frames
-        maps.speed[:, r0:r1] = pm.speed_px_per_frame
-        maps.direction[:, r0:r1] = pm.direction_rad
-        maps.coherence[:, r0:r1] = pm.coherence
-        maps.omega[:, r0:r1] = pm.omega_rad_per_frame
+        measures = [pm.period_frames, pm.speed_px_per_frame, pm.direction_rad, pm.coherence,
+                    pm.omega_rad_per_frame]
+        if partial:  # the whole movie = its valid stretches together
+            whole = combine_stretches(*(m[n:] for m in measures), [b - a for a, b in parts])
+            for m, w in zip(measures, whole, strict=True):
+                m[0] = w
+        maps.period[:, r0:r1] = pm.period_frames[:n]
+        maps.speed[:, r0:r1] = pm.speed_px_per_frame[:n]
+        maps.direction[:, r0:r1] = pm.direction_rad[:n]
+        maps.coherence[:, r0:r1] = pm.coherence[:n]
+        maps.omega[:, r0:r1] = pm.omega_rad_per_frame[:n]
         times, counts = activation_times(phase)
+        if partial:
+            times, counts = drop_invalid_arrivals(times, counts, valid)
         sp, _ = activation_fit_speed(times, counts, radius_px=FIT_RADIUS_PX, max_dt_frames=period_frames / 3.0)
         with warnings_module.catch_warnings():
             warnings_module.simplefilter("ignore", RuntimeWarning)  # all-NaN pixels give NaN
             maps.fit_speed[r0:r1] = np.nanmedian(sp[inner], axis=2)
-            gaps = np.diff(times[inner], axis=2)
+            gaps = intervals_outside(times[inner], valid) if partial else np.diff(times[inner], axis=2)
             maps.interval_cv[r0:r1] = np.nanstd(gaps, axis=2) / np.nanmean(gaps, axis=2)
         maps.arrivals.append((r0, times[inner].copy()))  # for the centres' own waves
         del times, counts, sp
@@ -143,12 +163,17 @@ def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int) -> Non
             maps.fit_speed[:] = np.where(ok, maps.fit_speed / np.where(ok, f, 1.0), np.nan)
 
 
-def _detect_and_track(charges, *, signal, n_frames, period_frames):
+def _detect_and_track(charges, *, signal, n_frames, period_frames, frame_ok=None):
     """Cores per frame from the collected plaquette charges (only plaquettes
-    whose top-left pixel carries a signal), then tracks."""
+    whose top-left pixel carries a signal, and with `frame_ok`, only in valid
+    frames; tracks may then bridge the invalid runs), then tracks."""
     ny, nx = signal.shape
     allq = np.concatenate(charges, axis=0) if charges else np.zeros((0, 4), dtype=np.int64)
     allq = allq[signal[allq[:, 1], allq[:, 2]]]
+    max_gap = 2
+    if frame_ok is not None and not np.all(frame_ok):
+        allq = allq[frame_ok[allq[:, 0]]]
+        max_gap += max(b - a for a, b in runs(~np.asarray(frame_ok, dtype=bool)))
     tables = []
     block = 64
     for f0 in range(0, n_frames, block):
@@ -159,4 +184,4 @@ def _detect_and_track(charges, *, signal, n_frames, period_frames):
             q[sel[:, 0] - f0, sel[:, 1], sel[:, 2]] = sel[:, 3].astype(np.int8)
         tables.append(tracking.detect_cores_stack(q, first_frame=f0))
     detections = tracking.concat_tables(tables)
-    return tracking.track_cores(detections, max_step_px=max(2.0, 0.1 * period_frames), max_gap_frames=2)
+    return tracking.track_cores(detections, max_step_px=max(2.0, 0.1 * period_frames), max_gap_frames=max_gap)

@@ -11,6 +11,7 @@ import scipy.ndimage
 
 from waves import __version__, preprocess
 from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
+from waves.analyse.segments import arrivals_by_stretch
 from waves.analyse.strips import _detect_and_track, _Maps
 from waves.measure.centres import emission_intervals, track_centres
 from waves.measure.period import quartiles
@@ -64,7 +65,7 @@ def _signal_without_empty_holes(amp, filled, options, core_tracks):
 
 
 def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
-               mean_b, warnings, notes):
+               mean_b, warnings, notes, frame_ok=None):
     nyb, nxb = maps.amplitude.shape
     dt_min = cal.frame_interval_min
     px_b = cal.pixel_size_um * factor
@@ -73,7 +74,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     wl_guess = float(np.nanmedian(maps.speed[0] * maps.period[0]))
     hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
     filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole)
-    tracks = _detect_and_track(maps.charges, signal=filled, n_frames=usable, period_frames=period0)
+    tracks = _detect_and_track(maps.charges, signal=filled, n_frames=usable, period_frames=period0, frame_ok=frame_ok)
     persistent = tracking.persistent_tracks(
         tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
     )
@@ -160,7 +161,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     grid = _grid(cal, factor)
     centres, centres_tab, terr_course = _centre_records(
         cs, maps=maps, valid=valid, windows=windows, trim=trim, factor=factor, cal=cal, merge_px=merge_px,
-        spiral_cores=spiral_cores,
+        spiral_cores=spiral_cores, frame_ok=frame_ok,
     )
     summary = {
         "schema_version": 1,
@@ -236,7 +237,7 @@ def _arrival_times(strips, shape) -> np.ndarray:
     return out
 
 
-def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, spiral_cores):
+def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, spiral_cores, frame_ok=None):
     """summary['centres'], the centres table and the per-window territory
     table, in calibrated units and recorded-image coordinates."""
     px = cal.pixel_size_um
@@ -270,8 +271,10 @@ def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, sp
         # from the waves the centre emitted itself (not those that entrain it later)
         own = np.zeros(0)
         if np.isfinite(period):
-            own = emission_intervals(arrivals, r, col, radius_px=merge_px,
-                                     max_lag_frames=0.5 * period / dt_min)
+            own = np.concatenate([  # within each valid stretch: no interval across a gap
+                emission_intervals(part, r, col, radius_px=merge_px, max_lag_frames=0.5 * period / dt_min)
+                for part in arrivals_by_stretch(arrivals, frame_ok)
+            ])
         whole = c["first_window"][i] <= 0 and c["last_window"][i] in (-1, len(windows) - 1)
         if len(own):
             period = float(np.mean(own)) * dt_min  # = (last - first) / n over runs of own waves

@@ -170,6 +170,7 @@ def recompute_phase(
 
     from waves import io, preprocess
     from waves.phase.analytic import analytic_signal
+    from waves.preprocess.timebase import grid_from_record, resample
 
     an = summary.get("analysis") or {}
     if "passband_period_min" not in an or "grid" not in an:
@@ -189,6 +190,12 @@ def recompute_phase(
     stack = _read_plan(stack_path, summary)
     data = stack.data
     nt, ny_r, nx_r = stack.shape_tyx
+    # the analysis's uniform time grid (dropped frames interpolated), when it had one
+    timebase = grid_from_record(summary.get("recording") or {})
+    if timebase is not None:
+        if timebase.n_recorded != nt:
+            raise InputError(f"the stack holds {nt} frames, the analysis's time grid {timebase.n_recorded}")
+        nt = timebase.n_grid
     grid_d = an["grid"]
     f = int(grid_d.get("bin", 1))
     grid = MapGrid.from_summary(summary)
@@ -248,6 +255,8 @@ def recompute_phase(
         raw = np.asarray(data[:, a0 * f : a1 * f, : nxb * f])
         b = preprocess.bin_frames(raw, f) if f > 1 else raw.astype(np.float32)
         del raw
+        if timebase is not None:
+            b = resample(b, timebase)
         if gain is not None:
             b /= gain[a0:a1]
         b -= b.mean(axis=0, keepdims=True)
