@@ -25,6 +25,7 @@ class AnalysisOptions:
     phase_method: str = "hilbert"  # or "delay": delay embedding with a quarter-period lag
     analysis_bin: int | None = None  # None: bin so a wavelength spans ~24 px
     flatten: bool = True
+    brightness: bool = True  # per-frame lamp gain/offset removed, flicker frames interpolated
     register: bool = False
     smooth_sigma_um: float | None = None  # None: wavelength / 12, from the first look
     min_amplitude: float | None = None  # signal floor of the amplitude map; None: Otsu

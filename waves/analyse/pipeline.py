@@ -8,6 +8,7 @@ import time
 
 import numpy as np
 
+from waves.analyse import brightness_pass
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
 from waves.analyse.options import PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
@@ -69,8 +70,17 @@ def analyse_movie(
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar)
+        bright = None
+        if options.brightness:  # lamp fade and flicker (waves.preprocess.brightness)
+            bright = brightness_pass.estimate(movie, mean_b, block=block,
+                                              slow_frames=options.period_band_min[1] / dt_min)
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
-               bar=bar, workers=int(options.workers), notes=notes)
+               bar=bar, workers=int(options.workers), notes=notes, brightness=bright)
+        if bright is not None:
+            brightness_pass.replace_flicker(movie, bright)
+            brightness_block = brightness_pass.report(bright, notes=notes, warnings=warnings)
+        else:
+            brightness_block = {"method": "off (--no-brightness)"}
         bar.close()
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
@@ -89,7 +99,9 @@ def analyse_movie(
                 )
             )
             grid = _grid(cal, factor)
-            return _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty = _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty.summary["brightness"] = brightness_block
+            return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
         trim = int(math.ceil(0.75 * period0))
@@ -137,6 +149,7 @@ def analyse_movie(
         warnings=warnings,
         notes=notes,
     )
+    result[0]["brightness"] = brightness_block
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),

@@ -18,6 +18,9 @@ step                        can be applied to
 `estimate_drift`            whole frames (binned if large), read one frame at a time
 `apply_drift`               any frame block with its rows of `shifts`; a row tile with
                             `drift_halo_px(shifts)` rows of halo, then cropped
+`estimate_brightness`       whole frames (a pixel sample of each), all frames (trend)
+`remove_brightness`         any frame block with its rows of the per-frame gain/offset
+`interpolate_frames`        whole frames, read one at a time
 `illumination_gain`         the temporal mean image (whole field)
 `apply_gain`                any block or tile with the matching part of the gain
 `detrend_time`              any spatial tile holding all frames (pixels independent)
@@ -35,6 +38,7 @@ Shifts are (dy, dx) in pixels, rows first, as everywhere in (t, y, x).
 
 from waves.preprocess._checks import DEFAULT_PERIOD_MIN_RANGE
 from waves.preprocess.binning import bin_frames
+from waves.preprocess.brightness import estimate_brightness, interpolate_frames, remove_brightness
 from waves.preprocess.binning import (
     bin_frames_numpy as bin_frames_numpy,  # the numpy twin, for tests
 )
@@ -62,6 +66,9 @@ __all__ = [
     "estimate_drift",
     "apply_drift",
     "drift_halo_px",
+    "estimate_brightness",
+    "remove_brightness",
+    "interpolate_frames",
     "illumination_gain",
     "apply_gain",
     "flatten_illumination",
