@@ -8,10 +8,11 @@ import time
 
 import numpy as np
 
+from waves import preprocess
 from waves.analyse import brightness_pass
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
-from waves.analyse.options import PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
+from waves.analyse.options import PAD_PERIODS, PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
 from waves.analyse.strips import _correct_smoothing_bias, _measure_strips, _strip_rows
 from waves.analyse.summary import _empty_result, _grid, _summarise
 from waves.errors import InputError, WavesError
@@ -116,18 +117,27 @@ def analyse_movie(
         win = max(4, min(int(round(options.window_periods * period0)), usable))
         step = max(1, win // 2)
         windows = [(s, s + win) for s in range(0, usable - win + 1, step)]
+        pad = min(nt - 1, int(math.ceil(PAD_PERIODS * period0)))  # mirrored frames each end before the FFT
         maps = _measure_strips(
             movie,
             passband=passband,
             trim=trim,
             windows=windows,
-            rows_per_strip=_strip_rows(nyb, nxb, nt, 0.5 * budget),
+            rows_per_strip=_strip_rows(nyb, nxb, nt + 2 * pad, 0.5 * budget),  # the padding costs memory too
             period_frames=period0,
             lag=lag,
             workers=options.workers,
             progress=progress,
+            pad_frames=pad,
         )
         _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor)
+        amplitude_units = "counts"
+        if float(mean_b.max()) > 0:  # fractional modulation: the signal floor must not follow the illumination
+            dish = preprocess.dish_mask(mean_b)
+            if float(mean_b[dish].mean()) > 0:
+                maps.amplitude = preprocess.relative_amplitude(
+                    maps.amplitude, mean_b, sigma_px=max(mean_b.shape) / 8.0, mask=dish, flattened=options.flatten)
+                amplitude_units = "fraction of the local mean brightness"
         timings["strips_s"] = time.perf_counter() - t0
     finally:
         movie.close()
@@ -150,6 +160,7 @@ def analyse_movie(
         notes=notes,
     )
     result[0]["brightness"] = brightness_block
+    result[0]["analysis"]["amplitude_units"] = amplitude_units
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),

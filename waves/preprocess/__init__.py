@@ -38,12 +38,17 @@ Shifts are (dy, dx) in pixels, rows first, as everywhere in (t, y, x).
 
 from waves.preprocess._checks import DEFAULT_PERIOD_MIN_RANGE
 from waves.preprocess.binning import bin_frames
-from waves.preprocess.brightness import estimate_brightness, interpolate_frames, remove_brightness
 from waves.preprocess.binning import (
     bin_frames_numpy as bin_frames_numpy,  # the numpy twin, for tests
 )
+from waves.preprocess.brightness import estimate_brightness, interpolate_frames, remove_brightness
 from waves.preprocess.drift import apply_drift, drift_halo_px, estimate_drift
-from waves.preprocess.illumination import apply_gain, flatten_illumination, illumination_gain
+from waves.preprocess.illumination import (
+    apply_gain,
+    flatten_illumination,
+    illumination_gain,
+    relative_amplitude,
+)
 from waves.preprocess.masks import difference_movie, dish_mask, signal_mask
 from waves.preprocess.spatial import (
     halo_px,
@@ -71,6 +76,7 @@ __all__ = [
     "interpolate_frames",
     "illumination_gain",
     "apply_gain",
+    "relative_amplitude",
     "flatten_illumination",
     "detrend_time",
     "butterworth_sos",
