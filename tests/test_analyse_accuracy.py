@@ -150,7 +150,7 @@ def test_detrending_removes_a_slow_baseline_drift(detrend, monkeypatch):
     if not detrend:
         analytic = analyse_strips.analytic_signal
 
-        def no_low_cut(x, *, passband, workers):
+        def no_low_cut(x, *, passband, workers, **_):  # and no per-pixel detrend
             return analytic(x, passband=(1e-9, passband[1]), workers=workers)
 
         monkeypatch.setattr(analyse_strips, "analytic_signal", no_low_cut)

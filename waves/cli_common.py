@@ -69,6 +69,8 @@ def add_analysis_options(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument("--register", action="store_true", help="correct rigid drift of the field")
     p.add_argument("--no-flatten", action="store_true", help="do not correct uneven illumination")
+    p.add_argument("--no-brightness", action="store_true",
+                   help="do not correct the lamp fade and flicker (per-frame brightness)")
     p.add_argument(
         "--memory-mb", type=float, default=400.0, metavar="MB", help="working-memory budget of an analysis"
     )
@@ -82,6 +84,7 @@ def analysis_options_from_args(args: argparse.Namespace, *, workers: int | None 
         period_band_min=tuple(args.period_band) if args.period_band else DEFAULT_PERIOD_BAND_MIN,
         phase_method=args.phase,
         flatten=not args.no_flatten,
+        brightness=not args.no_brightness,
         register=args.register,
         smooth_sigma_um=args.smooth,
         memory_budget_mb=args.memory_mb,

@@ -119,8 +119,10 @@ def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=No
 
 
 def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,
-           block: int, bar, workers: int, notes: list) -> None:
-    """Register, flatten, remove the mean and smooth the binned movie in place."""
+           block: int, bar, workers: int, notes: list, brightness=None) -> None:
+    """Remove the per-frame brightness (`brightness`, a
+    waves.preprocess.brightness.Brightness, or None), register, flatten,
+    remove the mean and smooth the binned movie in place."""
     nt = movie.shape[0]
     gain = None
     if options.flatten and float(mean_b.max()) > 0:
@@ -136,6 +138,8 @@ def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: 
 
     def one(t0):
         b = movie.frames(t0, t0 + block)
+        if brightness is not None:  # lamp fade and flicker: (frame - offset_t) / gain_t
+            b = preprocess.remove_brightness(b, brightness, first_frame=t0)
         if shifts is not None:
             b = preprocess.apply_drift(b, shifts[t0 : t0 + len(b)])
         if gain is not None:

@@ -13,6 +13,17 @@ DEFAULT_PERIOD_BAND_MIN = (2.0, 20.0)
 HALO_PX = 3  # gradient (1) + activation-fit radius (2)
 FIT_RADIUS_PX = 2
 MAX_SMOOTHING_CORRECTION = 0.03  # larger curvature corrections of a speed are not trusted: the speed is dropped
+# Before the FFT band-pass each pixel loses its least-squares quadratic (a slow trend: under one
+# cycle over the movie, far below the band), so a fade left after the brightness correction (or
+# with it off) is no sawtooth at the transform's wrap-around.  Measured (target and spiral, 128
+# frames, 40 % linear fade, brightness correction off): period -4.8 % / -5.2 %, speed +21 % without
+# the detrend; +0.02 % / +0.01 %, 0.0 % / -1.5 % with it (clean field unchanged: +-0.02 %).
+DETREND_DEGREE = 2
+# Mirror padding (periods each end) before the FFT, analytic_signal(pad_frames=...).  Off: on the
+# same movies one period of mirrored frames biased the clean-field period by -0.15 % and the speed by
+# -0.5 % (the reflection folds the phase, and the narrow band's ringing reaches past the trimmed
+# 0.75 period), while the detrend alone already removes the trend's wrap-around.
+PAD_PERIODS = 0.0
 PIXELS_PER_WAVELENGTH = 24  # target of the automatic analysis binning
 DISCLAIMER = "research measurements; not a clinical, diagnostic or safety judgement"
 
@@ -25,6 +36,7 @@ class AnalysisOptions:
     phase_method: str = "hilbert"  # or "delay": delay embedding with a quarter-period lag
     analysis_bin: int | None = None  # None: bin so a wavelength spans ~24 px
     flatten: bool = True
+    brightness: bool = True  # per-frame lamp gain/offset removed, flicker frames interpolated
     register: bool = False
     smooth_sigma_um: float | None = None  # None: wavelength / 12, from the first look
     min_amplitude: float | None = None  # signal floor of the amplitude map; None: Otsu

@@ -8,9 +8,11 @@ import time
 
 import numpy as np
 
+from waves import preprocess
+from waves.analyse import brightness_pass
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
-from waves.analyse.options import PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
+from waves.analyse.options import PAD_PERIODS, PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
 from waves.analyse.segments import settle_margins, valid_windows
 from waves.analyse.strips import _correct_smoothing_bias, _measure_strips, _strip_rows
 from waves.analyse.summary import _empty_result, _grid, _summarise
@@ -87,8 +89,17 @@ def analyse_movie(
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, resampler=resampler)
+        bright = None
+        if options.brightness:  # lamp fade and flicker (waves.preprocess.brightness)
+            bright = brightness_pass.estimate(movie, mean_b, block=block,
+                                              slow_frames=options.period_band_min[1] / dt_min)
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
-               bar=bar, workers=int(options.workers), notes=notes)
+               bar=bar, workers=int(options.workers), notes=notes, brightness=bright)
+        if bright is not None:
+            brightness_pass.replace_flicker(movie, bright)
+            brightness_block = brightness_pass.report(bright, notes=notes, warnings=warnings)
+        else:
+            brightness_block = {"method": "off (--no-brightness)"}
         bar.close()
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
@@ -109,6 +120,7 @@ def analyse_movie(
             grid = _grid(cal, factor)
             empty = _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
             empty.summary["recording"] = recording
+            empty.summary["brightness"] = brightness_block
             return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
@@ -131,19 +143,28 @@ def analyse_movie(
             windows = [(s, s + win) for s in range(0, usable - win + 1, step)]
         else:  # windows only inside valid stretches
             windows = valid_windows(valid_phase, win=win, step=step)
+        pad = min(nt - 1, int(math.ceil(PAD_PERIODS * period0)))  # mirrored frames each end before the FFT
         maps = _measure_strips(
             movie,
             passband=passband,
             trim=trim,
             windows=windows,
-            rows_per_strip=_strip_rows(nyb, nxb, nt, 0.5 * budget),
+            rows_per_strip=_strip_rows(nyb, nxb, nt + 2 * pad, 0.5 * budget),  # the padding costs memory too
             period_frames=period0,
             lag=lag,
             workers=options.workers,
             progress=progress,
             valid=valid_phase,
+            pad_frames=pad,
         )
         _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor)
+        amplitude_units = "counts"
+        if float(mean_b.max()) > 0:  # fractional modulation: the signal floor must not follow the illumination
+            dish = preprocess.dish_mask(mean_b)
+            if float(mean_b[dish].mean()) > 0:
+                maps.amplitude = preprocess.relative_amplitude(
+                    maps.amplitude, mean_b, sigma_px=max(mean_b.shape) / 8.0, mask=dish, flattened=options.flatten)
+                amplitude_units = "fraction of the local mean brightness"
         timings["strips_s"] = time.perf_counter() - t0
     finally:
         movie.close()
@@ -167,6 +188,8 @@ def analyse_movie(
         frame_ok=valid_phase,
     )
     result[0]["recording"] = recording
+    result[0]["brightness"] = brightness_block
+    result[0]["analysis"]["amplitude_units"] = amplitude_units
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),

@@ -9,7 +9,7 @@ import numpy as np
 
 from waves import preprocess
 from waves.analyse.clean import _Movie, _progress
-from waves.analyse.options import FIT_RADIUS_PX, HALO_PX, MAX_SMOOTHING_CORRECTION
+from waves.analyse.options import DETREND_DEGREE, FIT_RADIUS_PX, HALO_PX, MAX_SMOOTHING_CORRECTION
 from waves.analyse.segments import (
     combine_stretches,
     drop_invalid_arrivals,
@@ -67,7 +67,7 @@ def _phase(z: np.ndarray, lag: int | None) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, period_frames, lag, workers,
-                    progress, valid=None):
+                    progress, valid=None, pad_frames=0):
     """`valid` (phase frames, bool) or None: with invalid frames, the
     whole-movie measures come from the valid stretches and arrivals inside
     invalid frames are dropped (waves.analyse.segments)."""
@@ -91,7 +91,8 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
     for r0 in starts:
         r1 = min(ny, r0 + rows_per_strip)
         a0, a1 = max(0, r0 - HALO_PX), min(ny, r1 + HALO_PX)
-        z = analytic_signal(movie.rows(a0, a1), passband=passband, workers=workers)[trim : nt - trim]
+        z = analytic_signal(movie.rows(a0, a1), passband=passband, workers=workers, detrend_degree=DETREND_DEGREE,
+                            pad_frames=pad_frames, overwrite_x=True)[trim : nt - trim]
         phase, amp = _phase(z, lag)
         del z
         inner = slice(r0 - a0, r1 - a0)

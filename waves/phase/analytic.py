@@ -101,25 +101,63 @@ def analytic_signal(
     *,
     passband: tuple[float, float] | None = None,
     workers: int | None = None,
+    detrend_degree: int | None = None,
+    pad_frames: int = 0,
+    overwrite_x: bool = False,
 ) -> np.ndarray:
     """Analytic signal of `signal` along axis 0 (time), as complex64.
 
     Without a passband this equals scipy.signal.hilbert of the mean-removed
     signal.  With one, frequencies outside [f_lo, f_hi] cycles per frame are
     removed in the same transform.
+
+    The FFT treats the series as periodic: a slow trend (a fading lamp, cells
+    settling) becomes a sawtooth whose jump at the wrap-around rings through
+    the pass band.  `detrend_degree` removes each pixel's least-squares
+    polynomial of that degree first (a quadratic spans less than one cycle
+    over the movie, far below a band that holds several periods), and
+    `pad_frames` mirrors that many frames onto each end (even reflection,
+    the end frame not repeated), so the series is continuous where the
+    transform joins its ends; the padding is cut off again.  With
+    `overwrite_x` a float32 `signal` may be detrended in place (no copy).
     """
     x = np.asarray(signal)
     if x.ndim < 1 or x.shape[0] < 2:
         raise WavesError("an analytic signal needs at least two samples along time")
     n = x.shape[0]
-    spec = scipy.fft.rfft(x.astype(np.float32, copy=False), axis=0, workers=workers)
-    w = spectral_weights(n, passband).astype(np.float32)
-    spec *= w.reshape((-1,) + (1,) * (x.ndim - 1))
-    full = np.zeros((n,) + x.shape[1:], dtype=np.complex64)
+    x = x.astype(np.float32, copy=detrend_degree is not None and not overwrite_x)
+    if detrend_degree is not None:
+        x = _detrend_poly(x, int(detrend_degree))
+    pad = int(pad_frames)
+    if not 0 <= pad:
+        raise WavesError(f"pad_frames must be >= 0, got {pad_frames!r}")
+    pad = min(pad, n - 1)
+    if pad:
+        x = np.concatenate([x[pad:0:-1], x, x[-2 : -pad - 2 : -1]], axis=0)
+    m = x.shape[0]
+    spec = scipy.fft.rfft(x, axis=0, workers=workers)
+    del x
+    w = spectral_weights(m, passband).astype(np.float32)
+    spec *= w.reshape((-1,) + (1,) * (spec.ndim - 1))
+    full = np.zeros((m,) + spec.shape[1:], dtype=np.complex64)
     full[: spec.shape[0]] = spec
-    return scipy.fft.ifft(full, axis=0, overwrite_x=True, workers=workers).astype(
-        np.complex64, copy=False
-    )
+    del spec
+    z = scipy.fft.ifft(full, axis=0, overwrite_x=True, workers=workers).astype(np.complex64, copy=False)
+    return z[pad : pad + n] if pad else z
+
+
+def _detrend_poly(x: np.ndarray, degree: int) -> np.ndarray:
+    """x minus its least-squares polynomial of `degree` along axis 0, in place
+    (float32 x; orthonormal basis from a QR of the scaled Vandermonde matrix)."""
+    n = x.shape[0]
+    if degree < 0 or n <= degree + 1:
+        return x
+    t = np.linspace(-1.0, 1.0, n)
+    q, _ = np.linalg.qr(np.vander(t, degree + 1, increasing=True))
+    q = q.astype(np.float32)
+    flat = x.reshape(n, -1)
+    flat -= q @ (q.T @ flat)
+    return x
 
 
 @numba.njit(cache=True, nogil=True, parallel=True)

@@ -18,6 +18,9 @@ step                        can be applied to
 `estimate_drift`            whole frames (binned if large), read one frame at a time
 `apply_drift`               any frame block with its rows of `shifts`; a row tile with
                             `drift_halo_px(shifts)` rows of halo, then cropped
+`estimate_brightness`       whole frames (a pixel sample of each), all frames (trend)
+`remove_brightness`         any frame block with its rows of the per-frame gain/offset
+`interpolate_frames`        whole frames, read one at a time
 `illumination_gain`         the temporal mean image (whole field)
 `apply_gain`                any block or tile with the matching part of the gain
 `detrend_time`              any spatial tile holding all frames (pixels independent)
@@ -38,8 +41,14 @@ from waves.preprocess.binning import bin_frames
 from waves.preprocess.binning import (
     bin_frames_numpy as bin_frames_numpy,  # the numpy twin, for tests
 )
+from waves.preprocess.brightness import estimate_brightness, interpolate_frames, remove_brightness
 from waves.preprocess.drift import apply_drift, drift_halo_px, estimate_drift
-from waves.preprocess.illumination import apply_gain, flatten_illumination, illumination_gain
+from waves.preprocess.illumination import (
+    apply_gain,
+    flatten_illumination,
+    illumination_gain,
+    relative_amplitude,
+)
 from waves.preprocess.masks import difference_movie, dish_mask, signal_mask
 from waves.preprocess.spatial import (
     halo_px,
@@ -62,8 +71,12 @@ __all__ = [
     "estimate_drift",
     "apply_drift",
     "drift_halo_px",
+    "estimate_brightness",
+    "remove_brightness",
+    "interpolate_frames",
     "illumination_gain",
     "apply_gain",
+    "relative_amplitude",
     "flatten_illumination",
     "detrend_time",
     "butterworth_sos",

@@ -135,3 +135,27 @@ def flatten_illumination(frames, *, sigma_px: float, mask=None) -> np.ndarray:
     mean_image = arr.mean(axis=0, dtype=np.float64)
     gain = illumination_gain(mean_image, sigma_px=sigma_px, mask=mask)
     return apply_gain(arr, gain)
+
+
+def relative_amplitude(amplitude, mean_image, *, sigma_px: float, mask=None, flattened: bool) -> np.ndarray:
+    """Amplitude map (y, x) in units of the local brightness: fractional
+    modulation, float32, so a signal floor set on it does not follow the
+    illumination.
+
+    `mean_image` is the temporal mean of the movie before flattening.  When
+    the movie was flattened (divided by `illumination_gain`, mean 1 over the
+    field) its brightness is the field's mean level everywhere; otherwise it
+    is the smooth illumination itself (`illumination_gain` of the mean image
+    times that level), estimated the same way (`sigma_px`, `mask`)."""
+    amp = _as_real_array(amplitude, "amplitude", (2,), check_finite=False).astype(np.float64)
+    img = _as_real_array(mean_image, "mean image", (2,)).astype(np.float64)
+    if img.shape != amp.shape:
+        raise InputError(f"mean image must have the amplitude map's shape {amp.shape}, got {img.shape}")
+    inside = np.ones(img.shape, dtype=bool) if mask is None else np.asarray(mask, dtype=bool)
+    level = float(np.mean(img[inside]))
+    if not level > 0:
+        raise InputError("the mean image has no light (its mean is not positive); no relative amplitude")
+    if flattened:
+        return (amp / level).astype(np.float32)
+    gain = illumination_gain(img, sigma_px=sigma_px, mask=inside)
+    return (amp / (gain.astype(np.float64) * level)).astype(np.float32)

@@ -1,0 +1,61 @@
+"""The brightness pass: per-frame lamp gain and offset of the binned movie,
+flicker frames, and what the analysis says about them.
+
+Between the binning pass and the cleaning pass: `estimate` reads the binned
+movie once (a strided sample of the cell field's pixels per frame), the
+cleaning pass divides the slow gain out (`waves.preprocess.brightness`), and
+`replace_flicker` then overwrites each flicker frame of the cleaned movie by
+linear interpolation in time of its neighbours (the cleaning is linear per
+frame, so this equals cleaning an interpolated raw frame).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from waves import preprocess
+from waves.analyse.clean import _Movie
+from waves.preprocess import brightness as pb
+
+FADE_NOTE_PERCENT = 10.0  # a slow brightness change above this is named in the notes
+
+
+def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: float) -> pb.Brightness:
+    """Per-frame gain and offset of the binned movie against its temporal mean,
+    over the dish (the dark surround would only add noise to the fit)."""
+    field = preprocess.dish_mask(mean_b) if float(mean_b.max()) > 0 else np.ones(mean_b.shape, bool)
+    idx = pb.sample_pixels(field)
+    nt = movie.shape[0]
+    samples = np.empty((nt, idx.size), dtype=np.float32)
+    for t0 in range(0, nt, block):
+        b = movie.frames(t0, t0 + block)
+        samples[t0 : t0 + len(b)] = b.reshape(len(b), -1)[:, idx]
+    gain, offset = pb.frame_brightness(samples, mean_b.ravel()[idx])
+    return pb.brightness_correction(gain, offset, slow_frames=slow_frames)
+
+
+def replace_flicker(movie: _Movie, bright: pb.Brightness) -> list[int]:
+    """Flicker frames of the cleaned movie -> interpolation of their neighbours."""
+    if not bright.flicker.any():
+        return []
+    return pb.interpolate_frames(lambda i: movie.frames(i, i + 1)[0],
+                                 lambda i, f: movie.write(i, f[None]), bright.flicker)
+
+
+def report(bright: pb.Brightness, *, notes: list, warnings: list) -> dict:
+    """summary['brightness'], plus a note for a removed fade and a warning for flicker."""
+    out = bright.summary()
+    fade = out["fade_percent"]
+    if abs(fade) > FADE_NOTE_PERCENT:
+        notes.append(
+            f"the overall brightness {'fell' if fade < 0 else 'rose'} by {abs(fade):.0f} % from the first to "
+            "the last frame (lamp fade); it was divided out frame by frame before measuring"
+        )
+    fl = out["flicker_frames"]
+    if fl:
+        shown = ", ".join(map(str, fl[:20])) + (" ..." if len(fl) > 20 else "")
+        warnings.append(
+            f"{len(fl)} flicker frame{'s' if len(fl) > 1 else ''} (whole-frame brightness jumps) "
+            f"replaced by interpolating their neighbours: frame{'s' if len(fl) > 1 else ''} {shown}"
+        )
+    return out
