@@ -8,9 +8,10 @@ import time
 
 import numpy as np
 
+from waves.analyse import field as cell_field
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
-from waves.analyse.options import PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
+from waves.analyse.options import HALO_PX, PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
 from waves.analyse.strips import _correct_smoothing_bias, _measure_strips, _strip_rows
 from waves.analyse.summary import _empty_result, _grid, _summarise
 from waves.errors import InputError, WavesError
@@ -27,9 +28,13 @@ def analyse_movie(
     options: AnalysisOptions = AnalysisOptions(),  # noqa: B008 - a frozen dataclass (immutable)
     scratch_dir: pathlib.Path | None = None,
     progress: bool = False,
+    cell_mask: np.ndarray | None = None,
 ) -> Analysis:
     """Analyse a (t, y, x) movie (memory-mapped or in memory) of the given
     calibration, e.g. `waves.io.read_stack(...).data` or a synthetic movie.
+
+    `cell_mask` (recorded-frame shape, nonzero = cells) gives the cell field;
+    without it the field is found automatically (preprocess.cellfield).
 
     When the cleaned movie does not fit half the memory budget it is kept in
     a scratch file in `scratch_dir` (default: the system's temporary folder)
@@ -65,12 +70,16 @@ def analyse_movie(
     else:
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
     nyb, nxb = ny // factor, nx // factor
+    fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask)
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
-        mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar)
+        mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, weight=fplan.weight,
+                           coverage=fplan.coverage, stats=fplan.stats)
+        cells = cell_field.find(fplan, mean_b, pixel_size_um=px_um,
+                                wavelength_px=lam / factor if lam is not None else None)
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
-               bar=bar, workers=int(options.workers), notes=notes)
+               bar=bar, workers=int(options.workers), notes=notes, field_mask=cells.mask)
         bar.close()
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
@@ -136,6 +145,8 @@ def analyse_movie(
         mean_b=mean_b,
         warnings=warnings,
         notes=notes,
+        cells=cells,
+        margin_px=cell_field.preprocess.margin_px(sigma_px if sigma_px > 0.3 else 0.0, HALO_PX),
     )
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
