@@ -24,11 +24,14 @@ class FieldPlan:
     factor: int
 
 
-def plan(data, *, factor: int, cell_mask: np.ndarray | None) -> FieldPlan:
+def plan(data, *, factor: int, cell_mask: np.ndarray | None, pixel_size_um: float) -> FieldPlan:
     """Scan for saturated and dead pixels and set up the weighted binning."""
     ny, nx = (int(v) for v in data.shape[1:])
     user = None if cell_mask is None else preprocess.user_cell_mask(cell_mask, (ny, nx))
-    bad = preprocess.scan_bad_pixels(data)
+    bad = preprocess.scan_bad_pixels(data, speck_radius_px=max(2.0, preprocess.cellfield.SPECK_RADIUS_UM / pixel_size_um))
+    if user is not None:  # the user's mask says where cells are; specks are the user's to mark
+        bad = preprocess.BadPixels(saturated=bad.saturated, dead=bad.dead, specks=np.zeros_like(bad.specks),
+                                   full_scale=bad.full_scale, n_frames_scanned=bad.n_frames_scanned)
     good = ~bad.any
     weight = good if user is None else good & user
     nyb, nxb = ny // factor, nx // factor
@@ -66,11 +69,12 @@ def summary_block(field: preprocess.CellField, *, factor: int, margin_um: float,
     in_field_b = ~field.outside
     # saturated / dead recorded pixels inside the field (those outside count as outside)
     inside_rec = np.repeat(np.repeat(in_field_b, factor, axis=0), factor, axis=1)
-    sat = dead = 0
+    sat = dead = specks = 0
     if bad is not None:
         ny, nx = inside_rec.shape
         sat = int(np.sum(bad.saturated[:ny, :nx] & inside_rec))
         dead = int(np.sum(bad.dead[:ny, :nx] & inside_rec))
+        specks = int(np.sum(bad.specks[:ny, :nx] & inside_rec))
     return {
         "mask_fraction": float(field.mask.mean()),
         "measured_fraction": float(measured.mean()),
@@ -79,7 +83,7 @@ def summary_block(field: preprocess.CellField, *, factor: int, margin_um: float,
             "outside": int(field.outside.sum()) * f2,
             "saturated": sat,
             "dead": dead,
-            "specks": int(field.specks.sum()) * f2,
+            "specks": specks,
         },
         "excluded_units": "recorded pixels",
         "full_scale": None if bad is None or bad.full_scale is None else float(bad.full_scale),

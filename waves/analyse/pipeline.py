@@ -70,7 +70,7 @@ def analyse_movie(
     else:
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
     nyb, nxb = ny // factor, nx // factor
-    fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask)
+    fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um)
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)

@@ -42,6 +42,7 @@ __all__ = [
     "bin_weighted",
     "file_cell_field",
     "find_cell_field",
+    "find_specks",
     "margin_px",
     "measurable",
     "scan_bad_pixels",
@@ -51,7 +52,7 @@ __all__ = [
 
 SATURATED_FRACTION = 0.5  # a pixel at full scale in at least half the frames carries no signal
 OUTSIDE_CONTRAST = 3.0  # cells' temporal spread over the empty region's, at least (else: no empty region)
-SPECK_RADIUS_UM = 60.0  # the largest static speck the top-hat looks for (radius)
+SPECK_RADIUS_UM = 60.0  # the largest static speck looked for (radius)
 
 
 # --------------------------------------------------------------------------- bad camera pixels
@@ -59,17 +60,19 @@ SPECK_RADIUS_UM = 60.0  # the largest static speck the top-hat looks for (radius
 
 @dataclass(frozen=True)
 class BadPixels:
-    """Saturated and dead recorded pixels (recorded grid, bool) and the full
-    scale that saturation refers to (None for float data)."""
+    """Recorded pixels that carry no wave signal (recorded grid, bool):
+    saturated, dead (constant) and static bright specks; and the full scale
+    that saturation refers to (None for float data)."""
 
     saturated: np.ndarray
     dead: np.ndarray
+    specks: np.ndarray
     full_scale: float | None
     n_frames_scanned: int
 
     @property
     def any(self) -> np.ndarray:
-        return self.saturated | self.dead
+        return self.saturated | self.dead | self.specks
 
 
 def _full_scale(dtype: np.dtype, top: float) -> float | None:
@@ -84,30 +87,87 @@ def _full_scale(dtype: np.dtype, top: float) -> float | None:
     return float(np.iinfo(dtype).max)
 
 
-def scan_bad_pixels(data, *, n_frames: int = 32) -> BadPixels:
-    """Saturated and dead pixels of a (t, y, x) movie from `n_frames` frames
-    spread evenly over it (one frame in memory at a time).
+def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude: np.ndarray | None = None):
+    """Static bright specks on a frame: light added on top of the cells that
+    does not take part in the waves.
+
+    Where cells scatter, the waves modulate the scattered light, so the
+    temporal spread is proportional to the level (spread = k level, k
+    varying slowly over the field); a speck adds light without spread.  The
+    added light is estimated as level - spread / k_local (k_local the ratio
+    of Gaussian-smoothed spread and level, sigma 2 `radius_px`, over pixels
+    whose spread / level is at least half the median); pixels where
+    it exceeds 40 % of the local level, and whose spread is at least 0.3
+    times that of the cells around (the cells under a speck still wave, an
+    empty surround does not), make a speck's core; cores larger
+    than a disk of `radius_px` or longer than its diameter are not specks (a
+    rim, a bright region of cells); nor are pixels within 3 pixels of the empty
+    surround cores (the rim lies there).  A core grows by up to 2 pixels over pixels above 15 %, then by
+    one pixel more."""
+    m = np.asarray(mean, dtype=np.float64)
+    sd = np.asarray(std, dtype=np.float64)
+    ok = np.ones(m.shape, bool) if exclude is None else ~exclude
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rel = np.where(m > 0, sd / m, 0.0)
+    # k from pixels that take part in the waves (not the empty surround, not the specks)
+    w = (ok & (rel > 0.5 * float(np.median(rel[ok])))).astype(np.float64) if ok.any() else ok.astype(np.float64)
+    sig = max(2.0 * float(radius_px), 2.0)
+    g = lambda a: ndi.gaussian_filter(a, sig, mode="nearest")  # noqa: E731
+    local_level = g(m * ok) / np.maximum(g(ok.astype(np.float64)), 1e-12)
+    k = g(sd * w) / np.maximum(g(m * w), 1e-300)
+    if not np.isfinite(k).all() or float(np.median(k[ok])) <= 0:
+        return np.zeros(m.shape, dtype=bool)
+    added = m - sd / np.maximum(k, 1e-300)
+    level = np.maximum(local_level, 1e-300)
+    # under a speck the cells still wave (their spread stays); the empty surround has noise only
+    waving = sd > 0.3 * g(sd * w) / np.maximum(g(w), 1e-12)
+    # not within 3 pixels of the empty surround: a rim lies along the dish edge
+    near_quiet = ndi.binary_dilation(ok & ~waving, structure=np.ones((3, 3), bool), iterations=3)
+    strong = ok & (added > 0.4 * level) & waving & ~near_quiet
+    weak = ok & (added > 0.15 * level) & waving
+    labels, n = ndi.label(strong, structure=np.ones((3, 3), bool))
+    if n == 0:
+        return np.zeros(m.shape, dtype=bool)
+    sizes = np.bincount(labels.ravel(), minlength=n + 1)
+    keep = sizes <= math.pi * float(radius_px) ** 2
+    span = 2.0 * float(radius_px) + 1.0  # compact: a rim along the dish edge is long and thin
+    for i, sl in enumerate(ndi.find_objects(labels), start=1):
+        if sl is not None and max(sl[0].stop - sl[0].start, sl[1].stop - sl[1].start) > span:
+            keep[i] = False
+    keep[0] = False
+    seeds = keep[labels]
+    grown = seeds | (weak & ndi.binary_dilation(seeds, structure=np.ones((3, 3), bool), iterations=2))
+    return ndi.binary_dilation(grown, structure=np.ones((3, 3), bool)) & ok
+
+
+def scan_bad_pixels(data, *, n_frames: int = 32, speck_radius_px: float = 6.0) -> BadPixels:
+    """Saturated, dead and speck pixels of a (t, y, x) movie from `n_frames`
+    frames spread evenly over it (one frame in memory at a time).
 
     Saturated: at the file's full scale (`_full_scale`) in at least half of
     the scanned frames.  Dead: the same value in every scanned frame (at
-    least 8 frames; a pixel that truly carries light or noise changes)."""
+    least 8 frames; a pixel that truly carries light or noise changes).
+    Specks: `find_specks` on the scanned frames' mean and spread (the
+    scanned frames fall at all phases of the waves)."""
     nt = int(data.shape[0])
     idx = np.unique(np.linspace(0, nt - 1, min(nt, int(n_frames))).round().astype(np.int64))
+    shape = tuple(int(v) for v in data.shape[1:])
     lo = hi = None
-    at_top = None
+    s1 = np.zeros(shape, np.float64)
+    s2 = np.zeros(shape, np.float64)
     top = -np.inf
-    frames = []
     for i in idx:
         f = np.asarray(data[int(i)])
-        frames.append(i)
         top = max(top, float(f.max()))
         if lo is None:
             lo, hi = f.copy(), f.copy()
         else:
             np.minimum(lo, f, out=lo)
             np.maximum(hi, f, out=hi)
+        ff = f.astype(np.float64)
+        s1 += ff
+        s2 += ff * ff
     fs = _full_scale(np.asarray(data[0]).dtype, top)
-    shape = tuple(int(v) for v in data.shape[1:])
     if fs is not None and top >= fs:
         at_top = np.zeros(shape, dtype=np.int32)
         for i in idx:
@@ -115,8 +175,14 @@ def scan_bad_pixels(data, *, n_frames: int = 32) -> BadPixels:
         saturated = at_top >= SATURATED_FRACTION * len(idx)
     else:
         saturated = np.zeros(shape, dtype=bool)
-    dead = (lo == hi) & ~saturated if len(idx) >= 8 else np.zeros(shape, dtype=bool)
-    return BadPixels(saturated=saturated, dead=dead, full_scale=fs, n_frames_scanned=len(idx))
+    enough = len(idx) >= 8
+    dead = (lo == hi) & ~saturated if enough else np.zeros(shape, dtype=bool)
+    n = float(len(idx))
+    mean = s1 / n
+    std = np.sqrt(np.maximum(s2 / n - mean * mean, 0.0))
+    specks = (find_specks(mean, std, radius_px=speck_radius_px, exclude=saturated | dead) if enough
+              else np.zeros(shape, dtype=bool))
+    return BadPixels(saturated=saturated, dead=dead, specks=specks, full_scale=fs, n_frames_scanned=len(idx))
 
 
 # --------------------------------------------------------------------------- binning over good pixels
@@ -264,35 +330,6 @@ def _outside_regions(spread: np.ndarray, min_px: int) -> np.ndarray:
     return out
 
 
-def _specks(mean_b: np.ndarray, spread: np.ndarray, inside: np.ndarray, radius_px: int) -> np.ndarray:
-    """Static bright specks: much brighter than their surroundings (white
-    top-hat of the mean image), small (inside a disk of `radius_px`) and
-    with little temporal modulation for their brightness (light added on
-    top of the cells: spread / level well below the field's)."""
-    if inside.sum() < 16:
-        return np.zeros(mean_b.shape, dtype=bool)
-    size = 2 * radius_px + 1
-    opened = ndi.grey_opening(mean_b.astype(np.float64), size=(size, size), mode="nearest")
-    top = mean_b - opened
-    vals = top[inside]
-    med = float(np.median(vals))
-    mad = 1.4826 * float(np.median(np.abs(vals - med))) + 1e-12
-    level = float(np.median(mean_b[inside]))
-    rel = spread * np.abs(opened) / np.maximum(np.abs(mean_b), 1e-12)  # modulation left if the light were the cells'
-    rel_field = float(np.median(spread[inside]))
-    strong = inside & (top > med + 8.0 * mad) & (top > 0.2 * abs(level)) & (rel < 0.7 * rel_field)
-    weak = inside & (top > med + 4.0 * mad)
-    labels, n = ndi.label(weak, structure=np.ones((3, 3), bool))
-    if n == 0 or not strong.any():
-        return np.zeros(mean_b.shape, dtype=bool)
-    seeded = np.zeros(n + 1, dtype=bool)
-    seeded[np.unique(labels[strong])] = True
-    sizes = np.bincount(labels.ravel(), minlength=n + 1)
-    seeded &= sizes <= (2 * radius_px + 1) ** 2  # small: not a bright region of cells
-    seeded[0] = False
-    return ndi.binary_dilation(seeded[labels], structure=np.ones((3, 3), bool)) & inside
-
-
 def find_cell_field(mean_b: np.ndarray, stats: FieldStats, *, coverage: np.ndarray, factor: int,
                     pixel_size_um: float, wavelength_px: float | None, bad: BadPixels | None) -> CellField:
     """The automatic cell field on the analysis grid (pixel size
@@ -303,11 +340,13 @@ def find_cell_field(mean_b: np.ndarray, stats: FieldStats, *, coverage: np.ndarr
     lam = wavelength_px if wavelength_px is not None and np.isfinite(wavelength_px) else 16.0
     min_px = int(max(64, (0.5 * lam) ** 2))
     outside = _outside_regions(np.where(uncovered, 0.0, spread), min_px) & ~uncovered
-    inside = ~outside & ~uncovered
-    radius = max(1, int(math.ceil(SPECK_RADIUS_UM / pixel_size_um)))
-    specks = _specks(mean_b, spread, inside, radius) if inside.any() else np.zeros_like(inside)
-    mask = inside & ~specks
-    return CellField(mask=mask, outside=outside, specks=specks, uncovered=uncovered, source="automatic", bad=bad)
+    mask = ~outside & ~uncovered
+    specks = np.zeros(mask.shape, dtype=bool)
+    if bad is not None and bad.specks.any():  # analysis pixels mostly covered by specks
+        sp = bad.specks.astype(np.float32)
+        specks = (bin_frames(sp, factor) if factor > 1 else sp) >= 0.5
+    return CellField(mask=mask, outside=outside, specks=specks & ~outside, uncovered=uncovered, source="automatic",
+                     bad=bad)
 
 
 def user_cell_mask(mask, shape_yx: tuple[int, int]) -> np.ndarray:
