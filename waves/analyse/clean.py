@@ -142,6 +142,8 @@ def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: 
     reference = mean_b / gain if gain is not None else mean_b
     field = None if field_mask is None or field_mask.all() else field_mask
     norm = preprocess.smooth_space(field.astype(np.float32), sigma_px=sigma_px) if field is not None else None
+    # small holes (specks, dead pixels) are bridged by the kernel; larger ones stay 0
+    keep = preprocess.fill_small_holes(field, preprocess.small_hole_px(sigma_px)) if field is not None else None
 
     def one(t0):
         b = movie.frames(t0, t0 + block)
@@ -151,7 +153,7 @@ def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: 
             b /= gain
         b -= reference
         if field is not None:  # normalised convolution inside the cell field, 0 outside
-            b = (preprocess.smooth_in_field(b, field, sigma_px=sigma_px, norm=norm) if sigma_px > 0.3
+            b = (preprocess.smooth_in_field(b, field, sigma_px=sigma_px, norm=norm, keep=keep) if sigma_px > 0.3
                  else np.where(field, b, 0.0).astype(np.float32))
         elif sigma_px > 0.3:
             b = preprocess.smooth_space(b, sigma_px=sigma_px)

@@ -10,7 +10,7 @@ import numpy as np
 import scipy.ndimage
 
 from waves import __version__, preprocess
-from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
+from waves.analyse.options import DISCLAIMER, HALO_PX, Analysis, AnalysisOptions
 from waves.analyse.strips import _detect_and_track, _Maps
 from waves.measure.centres import emission_intervals, track_centres
 from waves.measure.period import quartiles
@@ -69,11 +69,15 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     dt_min = cal.frame_interval_min
     px_b = cal.pixel_size_um * factor
     # the cell field: nothing measured outside it nor within a margin of its edge (cellfield)
-    in_field = np.ones((nyb, nxb), bool) if cells is None else cells.mask
-    measured = preprocess.measurable(in_field, margin=margin_px)
+    small = preprocess.small_hole_px(sigma_px)
+    holey = np.ones((nyb, nxb), bool) if cells is None else cells.mask
+    measured = preprocess.measurable(holey, margin=margin_px, hole_margin=float(HALO_PX), small_hole_px=small)
+    in_field = preprocess.fill_small_holes(holey, small)  # the kernel bridges specks: directions and territories do
+    walkable = preprocess.measurable(in_field, margin=margin_px)
     if not measured.all():
         for name in ("period", "speed", "direction", "coherence", "omega"):
-            getattr(maps, name)[:, ~measured] = np.nan
+            arr = getattr(maps, name)
+            arr[:, ~(measured if name in ("period", "speed") else walkable)] = np.nan
         maps.fit_speed[~measured] = np.nan
         maps.interval_cv[~measured] = np.nan
     amp = np.nan_to_num(maps.amplitude, nan=0.0)

@@ -42,10 +42,12 @@ __all__ = [
     "bin_weighted",
     "file_cell_field",
     "find_cell_field",
+    "fill_small_holes",
     "find_specks",
     "margin_px",
     "measurable",
     "scan_bad_pixels",
+    "small_hole_px",
     "smooth_in_field",
     "user_cell_mask",
 ]
@@ -203,9 +205,6 @@ def bin_weighted(frames, factor: int, weight: np.ndarray, coverage: np.ndarray) 
 # --------------------------------------------------------------------------- streaming statistics
 
 
-FLICKER_JUMP = 0.05  # a frame whose level jumps this much from the frames before it is a flicker frame
-
-
 class FieldStats:
     """Streaming per-pixel statistics of the binned movie, block by block.
 
@@ -213,35 +212,22 @@ class FieldStats:
     quadratic in time (a lamp fade, linear or exponential, to 0.1 %) is its
     temporal spread (`spread`): the waves' modulation inside the cells, only
     noise outside them and on light that never changes (a bright rim, a
-    speck's own light).  A flicker frame, whose mean level over the good
-    pixels jumps by more than FLICKER_JUMP from the median of the 4 frames
-    before it, is divided by that jump first.  The frame's level is not
-    divided out in general: the waves move it too (coherent fronts), and
-    dividing by it would put the waves onto the constant light."""
+    speck's own light).  The frame's mean level is not divided out, nor
+    are jumps of it taken for flicker: the waves move it too (coherent
+    fronts of bands of 25 % contrast move it by more than 5 %), and dividing
+    by it would put the waves onto the constant light.  A few flicker frames
+    of +-10 % add a spread of about 1.4 % of the level everywhere, which
+    leaves an empty surround far below the cells' spread."""
 
     def __init__(self, shape_yx: tuple[int, int], good: np.ndarray | None = None) -> None:
         self.shape = tuple(int(v) for v in shape_yx)
         self.good = np.ones(self.shape, dtype=bool) if good is None else np.asarray(good, dtype=bool)
         self._s = [np.zeros(self.shape, np.float64) for _ in range(4)]  # sums of y, y t, y t^2, y^2
         self._n = 0
-        self._levels: list[float] = []
         self._tsum = np.zeros(5)  # sums of t^0 .. t^4
-        self.flicker_frames: list[int] = []
 
     def add(self, t0: int, block: np.ndarray) -> None:
         b = np.asarray(block, dtype=np.float64)
-        level = b[:, self.good].mean(axis=1) if self.good.any() else b.reshape(len(b), -1).mean(axis=1)
-        scale = np.ones(len(b))
-        for j, lev in enumerate(level):
-            before = self._levels[-4:]
-            if len(before) >= 2:
-                ref = float(np.median(before))
-                if ref != 0 and abs(lev / ref - 1.0) > FLICKER_JUMP:
-                    scale[j] = lev / ref
-                    self.flicker_frames.append(t0 + j)
-                    lev = ref
-            self._levels.append(float(lev))
-        b = b / scale[:, None, None]
         t = np.arange(t0, t0 + len(b), dtype=np.float64) / 1000.0  # scaled: sums of t^4 stay moderate
         self._s[0] += b.sum(axis=0)
         self._s[1] += np.tensordot(t, b, axes=(0, 0))
@@ -381,15 +367,34 @@ def file_cell_field(coverage_cells: np.ndarray, coverage_good: np.ndarray, bad: 
 # --------------------------------------------------------------------------- smoothing and margin
 
 
-def smooth_in_field(frames: np.ndarray, mask: np.ndarray, *, sigma_px: float, norm: np.ndarray | None = None):
-    """Normalised convolution: smooth_space(x m) / smooth_space(m) inside the
-    mask, 0 outside.  `norm` is smooth_space(m) (precomputed once)."""
+def fill_small_holes(mask: np.ndarray, max_px: int) -> np.ndarray:
+    """`mask` with its holes of fewer than `max_px` pixels filled (specks, a
+    few dead pixels: the normalised convolution bridges them)."""
+    if mask.all() or max_px <= 1:
+        return mask.copy()
+    holes = ~mask
+    return mask | (holes & ~_remove_small(holes, int(max_px)))
+
+
+def small_hole_px(sigma_px: float) -> int:
+    """Holes up to about a kernel's core, (2 sigma)^2 pixels (at least 9),
+    are bridged; larger ones are places without cells."""
+    return int(max(9, (2.0 * float(sigma_px)) ** 2))
+
+
+def smooth_in_field(frames: np.ndarray, mask: np.ndarray, *, sigma_px: float, norm: np.ndarray | None = None,
+                    keep: np.ndarray | None = None):
+    """Normalised convolution: smooth_space(x m) / smooth_space(m), kept on
+    `keep` (default: the mask; e.g. the mask with its small holes filled,
+    which the kernel bridges), 0 elsewhere.  `norm` is smooth_space(m)
+    (precomputed once)."""
     m = mask.astype(np.float32)
     if norm is None:
         norm = smooth_space(m, sigma_px=sigma_px)
     s = smooth_space(np.asarray(frames, dtype=np.float32) * m, sigma_px=sigma_px)
     with np.errstate(invalid="ignore", divide="ignore"):
-        out = np.where(mask, s / np.where(norm > 0, norm, 1.0), 0.0)
+        keep = mask if keep is None else keep & (norm > 1e-3)
+        out = np.where(keep, s / np.where(norm > 0, norm, 1.0), 0.0)
     return out.astype(np.float32)
 
 
@@ -400,11 +405,20 @@ def margin_px(sigma_px: float, halo_px: int) -> float:
     return 1.5 * max(float(sigma_px), 0.0) + float(halo_px)
 
 
-def measurable(mask: np.ndarray, *, margin: float) -> np.ndarray:
+def measurable(mask: np.ndarray, *, margin: float, hole_margin: float = 0.0, small_hole_px: int = 0) -> np.ndarray:
     """Pixels of `mask` farther than `margin` pixels from any pixel outside
     it (the frame's own border does not count: the smoothing is cut
-    symmetrically there)."""
+    symmetrically there).  Holes of fewer than `small_hole_px` pixels (a
+    speck, a few dead pixels) take only `hole_margin`: the normalised
+    convolution loses a small part of its kernel there, not half of it."""
     if mask.all():
         return mask.copy()
-    dist = ndi.distance_transform_edt(mask)
-    return mask & (dist > margin)
+    holes = ~mask
+    small = holes & ~_remove_small(holes, max(int(small_hole_px), 1)) if small_hole_px > 0 else np.zeros_like(mask)
+    big = holes & ~small
+    out = mask.copy()
+    if big.any():
+        out &= ndi.distance_transform_edt(~big) > margin
+    if small.any():
+        out &= ndi.distance_transform_edt(~small) > hole_margin
+    return out
