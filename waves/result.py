@@ -38,6 +38,7 @@ MAP_FILES = {
     "interval_cv": "interval_cv.tif",
     "amplitude": "amplitude.tif",
     "mean_image": "mean_image.tif",
+    "cell_mask": "cell_mask.tif",
 }
 
 STACK_FILES = {"territory_labels_windows": "territory_labels_windows.tif"}

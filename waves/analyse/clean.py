@@ -87,17 +87,24 @@ def clean_buffer(shape: tuple[int, int, int], *, folder: pathlib.Path | None = N
     return _Movie(tuple(int(v) for v in shape), in_memory=nbytes <= max_memory_bytes, folder=folder)
 
 
-def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=None) -> np.ndarray:
+def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=None, weight=None, coverage=None,
+              stats=None) -> np.ndarray:
     """Read the recording once: bin every frame block into `movie`, refuse
     non-finite or flat movies, and return the temporal-mean image (binned).
     With a `waves.preprocess.GridResampler` the binned frames are put on its
-    uniform time grid (`movie` has the grid's frames) as they are read."""
+    uniform time grid (`movie` has the grid's frames) as they are read.
+    With a recorded-grid `weight` (good, in-field pixels) and its binned
+    `coverage`, bins average only those pixels; `stats` (a
+    preprocess.FieldStats) gathers the cell field's statistics."""
     nt = data.shape[0]
     mean = np.zeros(movie.shape[1:], dtype=np.float64)
     lo, hi = np.inf, -np.inf
     for t0 in range(0, nt, block):
         raw = np.asarray(data[t0 : t0 + block])
-        b = preprocess.bin_frames(raw, factor) if factor > 1 else raw.astype(np.float32)
+        if weight is not None:  # cell field: only good, in-field recorded pixels
+            b = preprocess.bin_weighted(raw, factor, weight, coverage)
+        else:
+            b = preprocess.bin_frames(raw, factor) if factor > 1 else raw.astype(np.float32)
         if not np.isfinite(b).all():
             bad = np.flatnonzero(~np.isfinite(b).reshape(len(b), -1).all(axis=1)) + t0
             raise InputError(
@@ -111,6 +118,8 @@ def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=No
             w0, b = resampler.push(t0, b)
         mean += b.sum(axis=0, dtype=np.float64)
         if len(b):
+            if stats is not None:
+                stats.add(w0, b)
             movie.write(w0, b)
         bar.update(1)
     if hi - lo <= 0:
@@ -119,14 +128,19 @@ def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=No
 
 
 def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,
-           block: int, bar, workers: int, notes: list, brightness=None) -> None:
+           block: int, bar, workers: int, notes: list, brightness=None,
+           field_mask: np.ndarray | None = None) -> None:
     """Remove the per-frame brightness (`brightness`, a
     waves.preprocess.brightness.Brightness, or None), register, flatten,
-    remove the mean and smooth the binned movie in place."""
+    remove the mean and smooth the binned movie in place.
+    With a `field_mask` (the cell field, preprocess.cellfield) the gain fit,
+    the mean and the smoothing see only the field; outside is set to 0."""
     nt = movie.shape[0]
     gain = None
     if options.flatten and float(mean_b.max()) > 0:
         dish = preprocess.dish_mask(mean_b)  # a dark surround must not enter the gain fit
+        if field_mask is not None and (dish & field_mask).any():
+            dish = dish & field_mask
         gain = preprocess.illumination_gain(mean_b, sigma_px=max(mean_b.shape) / 8.0, mask=dish)
         gain = np.maximum(gain, 1e-3 * float(gain.max()))
     shifts = None
@@ -135,6 +149,10 @@ def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: 
         shifts = preprocess.estimate_drift(movie.view())
         notes.append(f"drift corrected: largest shift {factor * np.abs(shifts).max():.2f} px of the recording")
     reference = mean_b / gain if gain is not None else mean_b
+    field = None if field_mask is None or field_mask.all() else field_mask
+    norm = preprocess.smooth_space(field.astype(np.float32), sigma_px=sigma_px) if field is not None else None
+    # small holes (specks, dead pixels) are bridged by the kernel; larger ones stay 0
+    keep = preprocess.fill_small_holes(field, preprocess.small_hole_px(sigma_px)) if field is not None else None
 
     def one(t0):
         b = movie.frames(t0, t0 + block)
@@ -145,7 +163,10 @@ def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: 
         if gain is not None:
             b /= gain
         b -= reference
-        if sigma_px > 0.3:
+        if field is not None:  # normalised convolution inside the cell field, 0 outside
+            b = (preprocess.smooth_in_field(b, field, sigma_px=sigma_px, norm=norm, keep=keep) if sigma_px > 0.3
+                 else np.where(field, b, 0.0).astype(np.float32))
+        elif sigma_px > 0.3:
             b = preprocess.smooth_space(b, sigma_px=sigma_px)
         movie.write(t0, b)
         bar.update(1)

@@ -10,9 +10,16 @@ import numpy as np
 
 from waves import preprocess
 from waves.analyse import brightness_pass
+from waves.analyse import field as cell_field
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
-from waves.analyse.options import PAD_PERIODS, PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
+from waves.analyse.options import (
+    HALO_PX,
+    PAD_PERIODS,
+    PIXELS_PER_WAVELENGTH,
+    Analysis,
+    AnalysisOptions,
+)
 from waves.analyse.segments import settle_margins, valid_windows
 from waves.analyse.strips import _correct_smoothing_bias, _measure_strips, _strip_rows
 from waves.analyse.summary import _empty_result, _grid, _summarise
@@ -33,6 +40,7 @@ def analyse_movie(
     progress: bool = False,
     times_s=None,
     valid_frames=None,
+    cell_mask: np.ndarray | None = None,
 ) -> Analysis:
     """Analyse a (t, y, x) movie (memory-mapped or in memory) of the given
     calibration, e.g. `waves.io.read_stack(...).data` or a synthetic movie.
@@ -44,6 +52,8 @@ def analyse_movie(
                   measurements.
     valid_frames  (t,) bool, False for frames other steps declare bad: they are
                   replaced by interpolation and left out of the measurements.
+    cell_mask     (y, x) of the recorded frames, nonzero = cells: the cell field;
+                  None: found automatically (preprocess.cellfield).
 
     When the cleaned movie does not fit half the memory budget it is kept in
     a scratch file in `scratch_dir` (default: the system's temporary folder)
@@ -85,16 +95,20 @@ def analyse_movie(
     else:
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
     nyb, nxb = ny // factor, nx // factor
+    fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um)
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
-        mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, resampler=resampler)
+        mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, resampler=resampler,
+                           weight=fplan.weight, coverage=fplan.coverage, stats=fplan.stats)
+        cells = cell_field.find(fplan, mean_b, pixel_size_um=px_um,
+                                wavelength_px=lam / factor if lam is not None else None)
         bright = None
         if options.brightness:  # lamp fade and flicker (waves.preprocess.brightness)
             bright = brightness_pass.estimate(movie, mean_b, block=block,
                                               slow_frames=options.period_band_min[1] / dt_min)
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
-               bar=bar, workers=int(options.workers), notes=notes, brightness=bright)
+               bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask)
         if bright is not None:
             brightness_pass.replace_flicker(movie, bright)
             brightness_block = brightness_pass.report(bright, notes=notes, warnings=warnings)
@@ -186,6 +200,8 @@ def analyse_movie(
         warnings=warnings,
         notes=notes,
         frame_ok=valid_phase,
+        cells=cells,
+        margin_px=cell_field.preprocess.margin_px(sigma_px if sigma_px > 0.3 else 0.0, HALO_PX),
     )
     result[0]["recording"] = recording
     result[0]["brightness"] = brightness_block

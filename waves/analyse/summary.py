@@ -10,7 +10,7 @@ import numpy as np
 import scipy.ndimage
 
 from waves import __version__, preprocess
-from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
+from waves.analyse.options import DISCLAIMER, HALO_PX, Analysis, AnalysisOptions
 from waves.analyse.segments import arrivals_by_stretch
 from waves.analyse.strips import _detect_and_track, _Maps
 from waves.measure.centres import emission_intervals, track_centres
@@ -65,26 +65,43 @@ def _signal_without_empty_holes(amp, filled, options, core_tracks):
 
 
 def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
-               mean_b, warnings, notes, frame_ok=None):
+               mean_b, warnings, notes, frame_ok=None, cells=None, margin_px=0.0):
     nyb, nxb = maps.amplitude.shape
     dt_min = cal.frame_interval_min
     px_b = cal.pixel_size_um * factor
+    # the cell field: nothing measured outside it nor within a margin of its edge (cellfield)
+    small = preprocess.small_hole_px(sigma_px)
+    holey = np.ones((nyb, nxb), bool) if cells is None else cells.mask
+    measured = preprocess.measurable(holey, margin=margin_px, hole_margin=float(HALO_PX), small_hole_px=small)
+    in_field = preprocess.fill_small_holes(holey, small)  # the kernel bridges specks: directions and territories do
+    walkable = preprocess.measurable(in_field, margin=margin_px)
+    if not measured.all():
+        for name in ("period", "speed", "direction", "coherence", "omega"):
+            arr = getattr(maps, name)
+            arr[:, ~(measured if name in ("period", "speed") else walkable)] = np.nan
+        maps.fit_speed[~measured] = np.nan
+        maps.interval_cv[~measured] = np.nan
     amp = np.nan_to_num(maps.amplitude, nan=0.0)
     # small low-amplitude holes (spiral cores oscillate weakly) stay inside the signal
     wl_guess = float(np.nanmedian(maps.speed[0] * maps.period[0]))
     hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
-    filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole)
-    tracks = _detect_and_track(maps.charges, signal=filled, n_frames=usable, period_frames=period0, frame_ok=frame_ok)
+    filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole) & in_field
+    tracks = _detect_and_track(maps.charges, signal=filled & measured, n_frames=usable, period_frames=period0,
+                               frame_ok=frame_ok)
     persistent = tracking.persistent_tracks(
         tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
     )
     # holes without a core are places without signal (obstacles, empty patches): out
     valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks)
+    valid_field = valid & in_field  # territories fill the whole cell field (margin: nearest territory)
+    valid = valid & measured
 
     # speeds only where the direction is steady and away from persistent cores
     wl_px = float(np.nanmedian(np.where(valid, maps.speed[0] * maps.period[0], np.nan)))
     # ... and where the smoothing kernel saw signal all round (no dead patch, no second territory)
-    speed_ok = valid & (maps.coherence[0] >= options.min_coherence) & kernel_saw_signal(amp, sigma_px=sigma_px)
+    # (outside the cell field the smoothing saw nothing: normalised convolution, not a dead patch)
+    amp_seen = amp if in_field.all() else np.where(in_field, amp, np.inf)
+    speed_ok = valid & (maps.coherence[0] >= options.min_coherence) & kernel_saw_signal(amp_seen, sigma_px=sigma_px)
     per = persistent.tracks
     if len(per["track_id"]):
         rr, cc = np.mgrid[0:nyb, 0:nxb]
@@ -96,7 +113,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     cs = track_centres(
         maps.direction,
         maps.coherence,
-        valid,
+        valid_field,
         merge_radius_px=merge_px,
         min_coherence=options.min_coherence,
         cores_rows=per["mean_row"],
@@ -160,7 +177,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         warnings.append("front speed not measured: no pixel has a steady wave direction away from cores and collisions")
     grid = _grid(cal, factor)
     centres, centres_tab, terr_course = _centre_records(
-        cs, maps=maps, valid=valid, windows=windows, trim=trim, factor=factor, cal=cal, merge_px=merge_px,
+        cs, maps=maps, valid=valid_field, windows=windows, trim=trim, factor=factor, cal=cal, merge_px=merge_px,
         spiral_cores=spiral_cores, frame_ok=frame_ok,
     )
     summary = {
@@ -210,6 +227,14 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "amplitude": maps.amplitude,
         "mean_image": mean_b,
     }
+    if cells is not None:
+        from waves.analyse.field import notes_for, summary_block
+
+        block = summary_block(cells, factor=factor, margin_um=margin_px * px_b if not measured.all() else 0.0,
+                              measured=measured)
+        summary["cell_field"] = block
+        notes.extend(notes_for(block))
+        out_maps["cell_mask"] = cells.mask.astype(np.uint8)
     course_tab = {
         "t_min": np.asarray([c["t_min"] for c in course], dtype=np.float64),
         "period_min": np.asarray([c["period_min"] for c in course], dtype=np.float64),

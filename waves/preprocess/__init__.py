@@ -29,6 +29,8 @@ step                        can be applied to
                             of halo, then cropped (exactly equal to the whole frame)
 `difference_movie`          a frame block with `lag` extra frames at its end
 `signal_mask`, `dish_mask`  whole-field maps (small: one value per pixel)
+`smooth_in_field`           like `smooth_space` (normalised convolution in a mask)
+`find_cell_field`           whole-field maps from `FieldStats` (streamed per block)
 ==========================  ==========================================================
 
 Units: spatial options in pixels of the array passed (`sigma_px`), times in
@@ -42,6 +44,21 @@ from waves.preprocess.binning import (
     bin_frames_numpy as bin_frames_numpy,  # the numpy twin, for tests
 )
 from waves.preprocess.brightness import estimate_brightness, interpolate_frames, remove_brightness
+from waves.preprocess.cellfield import (
+    BadPixels,
+    CellField,
+    FieldStats,
+    bin_weighted,
+    file_cell_field,
+    fill_small_holes,
+    find_cell_field,
+    margin_px,
+    measurable,
+    scan_bad_pixels,
+    small_hole_px,
+    smooth_in_field,
+    user_cell_mask,
+)
 from waves.preprocess.drift import apply_drift, drift_halo_px, estimate_drift
 from waves.preprocess.illumination import (
     apply_gain,
@@ -91,4 +108,18 @@ __all__ = [
     "signal_mask",
     "dish_mask",
     "difference_movie",
+    # the cell field (preprocess.cellfield)
+    "BadPixels",
+    "CellField",
+    "FieldStats",
+    "bin_weighted",
+    "file_cell_field",
+    "fill_small_holes",
+    "find_cell_field",
+    "margin_px",
+    "measurable",
+    "scan_bad_pixels",
+    "small_hole_px",
+    "smooth_in_field",
+    "user_cell_mask",
 ]
