@@ -38,6 +38,7 @@ MAP_FILES = {
     "interval_cv": "interval_cv.tif",
     "amplitude": "amplitude.tif",
     "mean_image": "mean_image.tif",
+    "covered": "covered.tif",
 }
 
 STACK_FILES = {"territory_labels_windows": "territory_labels_windows.tif"}
@@ -49,6 +50,7 @@ TABLE_FILES = {
     "dispersion": "dispersion.csv",
     "centres": "centres.csv",
     "territories_timecourse": "territories_timecourse.csv",
+    "drift": "drift.csv",
 }
 
 

@@ -113,19 +113,15 @@ def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar) -> np.ndarra
 
 
 def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,
-           block: int, bar, workers: int, notes: list) -> None:
-    """Register, flatten, remove the mean and smooth the binned movie in place."""
+           block: int, bar, workers: int, notes: list, shifts: np.ndarray | None = None) -> None:
+    """Register (by `shifts`, analysis-grid px, waves.analyse.drift_auto), flatten,
+    remove the mean and smooth the binned movie in place."""
     nt = movie.shape[0]
     gain = None
     if options.flatten and float(mean_b.max()) > 0:
         dish = preprocess.dish_mask(mean_b)  # a dark surround must not enter the gain fit
         gain = preprocess.illumination_gain(mean_b, sigma_px=max(mean_b.shape) / 8.0, mask=dish)
         gain = np.maximum(gain, 1e-3 * float(gain.max()))
-    shifts = None
-    if options.register:
-        # registered on the analysis grid; the reference is the temporal median
-        shifts = preprocess.estimate_drift(movie.view())
-        notes.append(f"drift corrected: largest shift {factor * np.abs(shifts).max():.2f} px of the recording")
     reference = mean_b / gain if gain is not None else mean_b
 
     def one(t0):

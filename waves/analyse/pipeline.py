@@ -8,6 +8,7 @@ import time
 
 import numpy as np
 
+from waves.analyse import drift_auto
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
 from waves.analyse.options import PIXELS_PER_WAVELENGTH, Analysis, AnalysisOptions
@@ -53,7 +54,11 @@ def analyse_movie(
 
     t0 = time.perf_counter()
     block = max(1, min(64, int(16e6 // max(ny * nx * 4, 1))))
-    lam = _wavelength_look(data)
+    # stage drift, on every run; the first look sees frames put back and differenced
+    drift_plan = drift_auto.plan(data, options.register)
+    timings["drift_estimate_s"] = time.perf_counter() - t0
+    lam = _wavelength_look(data, shifts_px=drift_plan.look_shifts_px,
+                           lag_frames=drift_auto.look_lag_frames(options.period_band_min, dt_min, nt))
     if options.analysis_bin is not None:
         factor = int(options.analysis_bin)
     else:
@@ -65,12 +70,16 @@ def analyse_movie(
     else:
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
     nyb, nxb = ny // factor, nx // factor
+    drift = drift_auto.on_grid(drift_plan, factor=factor, shape_b=(nyb, nxb), frame_interval_min=dt_min,
+                               sigma_px=sigma_px)
+    warnings += drift.warnings
+    notes += drift.notes
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar)
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
-               bar=bar, workers=int(options.workers), notes=notes)
+               bar=bar, workers=int(options.workers), notes=notes, shifts=drift.shifts_b)
         bar.close()
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
@@ -89,7 +98,11 @@ def analyse_movie(
                 )
             )
             grid = _grid(cal, factor)
-            return _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty = _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty.summary["drift"] = drift.summary
+            empty.tables["drift"] = drift.table
+            empty.maps["covered"] = drift.covered
+            return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
         trim = int(math.ceil(0.75 * period0))
@@ -136,7 +149,10 @@ def analyse_movie(
         mean_b=mean_b,
         warnings=warnings,
         notes=notes,
+        covered=drift.covered,
     )
+    result[0]["drift"] = drift.summary
+    result[2]["drift"] = drift.table
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),

@@ -64,21 +64,23 @@ def _signal_without_empty_holes(amp, filled, options, core_tracks):
 
 
 def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
-               mean_b, warnings, notes):
+               mean_b, warnings, notes, covered=None):
     nyb, nxb = maps.amplitude.shape
+    # pixels some frame has no data for (the border strip a drift correction leaves) are never measured
+    covered = np.ones((nyb, nxb), dtype=bool) if covered is None else np.asarray(covered, dtype=bool)
     dt_min = cal.frame_interval_min
     px_b = cal.pixel_size_um * factor
     amp = np.nan_to_num(maps.amplitude, nan=0.0)
     # small low-amplitude holes (spiral cores oscillate weakly) stay inside the signal
     wl_guess = float(np.nanmedian(maps.speed[0] * maps.period[0]))
     hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
-    filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole)
+    filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole) & covered
     tracks = _detect_and_track(maps.charges, signal=filled, n_frames=usable, period_frames=period0)
     persistent = tracking.persistent_tracks(
         tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
     )
     # holes without a core are places without signal (obstacles, empty patches): out
-    valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks)
+    valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks) & covered
 
     # speeds only where the direction is steady and away from persistent cores
     wl_px = float(np.nanmedian(np.where(valid, maps.speed[0] * maps.period[0], np.nan)))
@@ -208,6 +210,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "interval_cv": np.where(valid, maps.interval_cv, np.nan).astype(np.float32),
         "amplitude": maps.amplitude,
         "mean_image": mean_b,
+        "covered": covered,
     }
     course_tab = {
         "t_min": np.asarray([c["t_min"] for c in course], dtype=np.float64),
