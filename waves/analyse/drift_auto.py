@@ -36,6 +36,15 @@ JUMP_MAD_FACTOR = 8.0
 # do not carry enough static texture to be registered (plain noise and moving
 # bands score ~0-0.2, a textured field ~0.6-0.95; measured on synthetic recordings).
 MIN_MATCH = 0.3
+# ... and the temporal median of the high-passed frames (as recorded) must keep
+# this fraction of their power: static texture keeps much of it even under a few
+# px of drift (0.24-0.99 on synthetic recordings of texture contrast 0.03-0.3,
+# drift up to 4.4 px), moving bands wash out of the median (0.02 for a plane wave)
+MIN_STATIC = 0.1
+# ... and a stage moves smoothly: the median frame-to-frame step of the estimate
+# stays below this (recorded px).  An estimate locked onto moving bands steps by
+# the front's advance per frame (3.3 px for 100 um/min, 20 s, 10 um pixels).
+MAX_MEDIAN_STEP_PX = 0.3
 TEXTURE_SIGMA_PX = 3.0  # high-pass scale on the estimation grid: well above the grain, well below a wavelength
 REFERENCE_FRAMES = 31
 ESTIMATE_MAX_SIDE_PX = 256
@@ -46,6 +55,7 @@ class DriftEstimate:
     shifts_px: np.ndarray  # (t, 2) [dy, dx] recorded px, relative to frame 0
     match: np.ndarray  # (t,) normalised correlation of each frame with the reference
     reliable: bool
+    static_fraction: float  # power of the frames' temporal median / their mean power (high-passed, as recorded)
     jumps: tuple[tuple[int, float], ...]  # (first frame after the jump, size in recorded px)
     estimate_bin: int
 
@@ -111,25 +121,27 @@ def estimate_coarse_drift(data, *, block: int = 32) -> DriftEstimate:
     idx = np.unique(np.linspace(0, nt - 1, min(nt, REFERENCE_FRAMES)).round().astype(int))
     sample = np.stack([_texture(f) for f in _frames(data, idx, eb)])
     if not np.isfinite(sample).all():
-        zero = np.zeros((nt, 2))
-        return DriftEstimate(zero, np.zeros(nt), False, (), eb)
+        return DriftEstimate(np.zeros((nt, 2)), np.zeros(nt), False, 0.0, (), eb)
     max_shift = max(2, min(sample.shape[1:]) // 4)
     # the sample frames are put on the first one's position before the median,
     # so a large drift does not blur the reference
     first = _Matcher(sample[0], max_shift)
     back = np.stack([ndi.shift(s, -first(s)[0], order=1, mode="nearest") for s in sample])
+    power = float(np.mean(np.sum(sample.astype(np.float64) ** 2, axis=(1, 2))))
+    static = float(np.sum(np.median(sample, axis=0).astype(np.float64) ** 2)) / power if power > 0 else 0.0
     match = _Matcher(np.median(back, axis=0), max_shift)
     shifts = np.zeros((nt, 2))
     score = np.zeros(nt)
     for t0 in range(0, nt, block):
         frames = _frames(data, np.arange(t0, min(nt, t0 + block)), eb)
         if not np.isfinite(frames).all():
-            return DriftEstimate(np.zeros((nt, 2)), np.zeros(nt), False, (), eb)
+            return DriftEstimate(np.zeros((nt, 2)), np.zeros(nt), False, static, (), eb)
         for k, f in enumerate(frames):
             shifts[t0 + k], score[t0 + k] = match(_texture(f))
     shifts = (shifts - shifts[0]) * eb
-    reliable = bool(np.median(score) >= MIN_MATCH)
-    return DriftEstimate(shifts, score, reliable, _jumps(shifts) if reliable else (), eb)
+    step = float(np.median(np.hypot(*np.diff(shifts, axis=0).T))) if nt > 1 else 0.0
+    reliable = bool(np.median(score) >= MIN_MATCH and static >= MIN_STATIC and step <= MAX_MEDIAN_STEP_PX)
+    return DriftEstimate(shifts, score, reliable, static, _jumps(shifts) if reliable else (), eb)
 
 
 def _jumps(shifts: np.ndarray) -> tuple[tuple[int, float], ...]:
@@ -162,7 +174,9 @@ def decide(est: DriftEstimate, *, factor: int, mode: str) -> tuple[bool, str]:
         return True, f"corrected: switched on (--register); {size}"
     if not est.reliable:
         return False, ("not corrected: too little static texture to measure drift "
-                       f"(median match {float(np.median(est.match)):.2f} < {MIN_MATCH})")
+                       f"(median match {float(np.median(est.match)):.2f}, minimum {MIN_MATCH}; static "
+                       f"fraction {est.static_fraction:.2f}, minimum {MIN_STATIC}; or the estimate moved "
+                       f"like the waves, more than {MAX_MEDIAN_STEP_PX} px per frame)")
     if est.max_shift_px > limit:
         return True, f"corrected: {size} exceeds {DRIFT_CORRECT_FRACTION:g} of an analysis-grid pixel"
     return False, f"not corrected: {size} is within {DRIFT_CORRECT_FRACTION:g} of an analysis-grid pixel"
@@ -205,18 +219,22 @@ def drift_summary(est: DriftEstimate, *, corrected: bool, reason: str, covered: 
         "reason": reason,
         "uncovered_fraction": float(1.0 - covered.mean()),
         "estimate_bin": est.estimate_bin,
+        "match_median": float(np.median(est.match)) if est.match.size else None,
+        "static_texture_fraction": est.static_fraction,
         "method": "cross-correlation of high-passed frames with a temporal-median reference",
     }
 
 
-def drift_table(est: DriftEstimate, *, frame_interval_min: float) -> dict:
-    """tables['drift']: per-frame drift in recorded pixels."""
+def drift_table(est: DriftEstimate, *, frame_interval_min: float, corrected: bool) -> dict:
+    """tables['drift']: per-frame drift in recorded pixels (NaN when it could
+    not be measured and was not applied)."""
     nt = len(est.shifts_px)
+    shifts = est.shifts_px if (est.reliable or corrected) else np.full((nt, 2), np.nan)
     return {
         "frame": np.arange(nt, dtype=np.int64),
         "t_min": np.arange(nt, dtype=np.float64) * frame_interval_min,
-        "dy_px": est.shifts_px[:, 0].astype(np.float64),
-        "dx_px": est.shifts_px[:, 1].astype(np.float64),
+        "dy_px": shifts[:, 0].astype(np.float64),
+        "dx_px": shifts[:, 1].astype(np.float64),
     }
 
 
@@ -283,5 +301,5 @@ def on_grid(p: DriftPlan, *, factor: int, shape_b: tuple[int, int], frame_interv
     warnings, notes = drift_notes(p.estimate, corrected=corrected, mode=p.mode, factor=factor)
     return DriftOnGrid(
         shifts_b, covered, drift_summary(p.estimate, corrected=corrected, reason=reason, covered=covered),
-        drift_table(p.estimate, frame_interval_min=frame_interval_min), warnings, notes,
+        drift_table(p.estimate, frame_interval_min=frame_interval_min, corrected=corrected), warnings, notes,
     )

@@ -8,7 +8,6 @@ from waves import preprocess
 from waves.analyse.clean import _Movie
 from waves.measure.period import spectral_period
 
-
 LOOK_PAD = 4  # zero-padding of the look's spectra: radial bins of a quarter of the field's frequency step
 LOOK_FRAMES = 12
 
