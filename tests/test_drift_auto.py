@@ -18,6 +18,7 @@ from waves.analyse.options import PIXELS_PER_WAVELENGTH
 from waves.cli import main
 from waves.errors import WavesError
 from waves.render import Degradations
+from waves.report import write_report
 
 PX, DT, SPEED, PERIOD = 10.0, 20.0, 100.0, 6.0  # um, s, um/min, min: wavelength 600 um = 60 px
 SEEDS = (0, 1, 2)
@@ -190,24 +191,29 @@ def test_no_register_on_a_drifting_field_warns():
 # ----------------------------------------------------------------- the command line
 
 
+@pytest.mark.slow  # three whole analyses through the CLI and a report: ~25-50 s on a shared machine
 def test_cli_register_and_no_register(tmp_path):
     drifting = S.write_recording(_rec("spiral", 2), tmp_path / "drifting.ome.tif")
     still = S.write_recording(_rec("spiral", 2, drift=False), tmp_path / "still.ome.tif")
     out = tmp_path / "off"
-    assert main(["analyse", str(drifting), "--out", str(out), "--quiet", "--no-register"]) in (0, 2)
-    if (out / "summary.json").is_file():
+    code = main(["analyse", str(drifting), "--out", str(out), "--quiet", "--no-report", "--no-register"])
+    assert code in (0, 2)  # uncorrected drift may leave no usable period: refused with exit 2
+    if code == 0:
         s = json.loads((out / "summary.json").read_text())
         assert s["drift"]["corrected"] is False and any("drift" in w for w in s["warnings"])
     out = tmp_path / "on"
-    assert main(["analyse", str(still), "--out", str(out), "--quiet", "--register"]) == 0
+    assert main(["analyse", str(still), "--out", str(out), "--quiet", "--no-report", "--register"]) == 0
     s = json.loads((out / "summary.json").read_text())
     assert s["drift"]["corrected"] is True and "--register" in s["drift"]["reason"]
     assert (out / "drift.csv").read_text().splitlines()[0] == "frame,t_min,dy_px,dx_px"
     assert (out / "covered.tif").is_file()
     out = tmp_path / "auto"
-    assert main(["analyse", str(drifting), "--out", str(out), "--quiet"]) == 0
+    assert main(["analyse", str(drifting), "--out", str(out), "--quiet", "--no-report"]) == 0
     s = json.loads((out / "summary.json").read_text())
-    assert s["drift"]["corrected"] is True and len(s["spiral_cores"]) == 1
+    assert s["drift"]["corrected"] is True and len(s["spiral_cores"]) == 1  # synthetic truth: one spiral
+    # the report shows the drift trace
+    html = write_report(out, movie=False).read_text()
+    assert 'alt="stage drift"' in html and "sudden jumps (dotted) at frame" in html
     # argparse refuses both at once: exit 2
     assert main(["analyse", str(still), "--register", "--no-register"]) == 2
 
