@@ -67,7 +67,11 @@ def add_analysis_options(p: argparse.ArgumentParser) -> None:
         default="hilbert",
         help="phase from the analytic signal (default) or by delay embedding (quarter-period lag)",
     )
-    p.add_argument("--register", action="store_true", help="correct rigid drift of the field")
+    reg = p.add_mutually_exclusive_group()
+    reg.add_argument("--register", dest="register", action="store_const", const=True, default=None,
+                     help="always correct rigid drift of the field (default: when it exceeds a quarter pixel)")
+    reg.add_argument("--no-register", dest="register", action="store_const", const=False,
+                     help="never correct drift (it is still measured and reported)")
     p.add_argument("--no-flatten", action="store_true", help="do not correct uneven illumination")
     p.add_argument("--no-brightness", action="store_true",
                    help="do not correct the lamp fade and flicker (per-frame brightness)")

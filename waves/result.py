@@ -39,6 +39,7 @@ MAP_FILES = {
     "amplitude": "amplitude.tif",
     "mean_image": "mean_image.tif",
     "cell_mask": "cell_mask.tif",
+    "covered": "covered.tif",
 }
 
 STACK_FILES = {"territory_labels_windows": "territory_labels_windows.tif"}
@@ -50,6 +51,7 @@ TABLE_FILES = {
     "dispersion": "dispersion.csv",
     "centres": "centres.csv",
     "territories_timecourse": "territories_timecourse.csv",
+    "drift": "drift.csv",
 }
 
 

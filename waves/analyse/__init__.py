@@ -1,12 +1,18 @@
 """The analysis pipeline: a calibrated stack -> period, front speed,
 wavelength and spiral cores, in bounded memory.
 
+0. Stage drift (every run, `drift_auto`): every frame registered, coarsely,
+   against a temporal-median reference of its high-passed texture; jumps found;
+   corrected when it exceeds a quarter of an analysis-grid pixel (or as
+   `register` says); the border strip a correction leaves without data is
+   masked (`covered`) and never measured.
 1. A first look (frame blocks): the temporal-mean image, a check for flat or
-   non-finite movies, and the dominant wavelength of a few frames.  The
+   non-finite movies, and the dominant wavelength of a dozen frame differences
+   a quarter period apart, put back by the drift estimate.  The
    analysis grid is the recorded one binned so that a wavelength spans about
    24 pixels (waves are smooth on that scale; binning averages camera noise
    and cuts the work), unless the user fixes the factor.
-2. Cleaning (frame blocks): binning, optional drift correction, illumination
+2. Cleaning (frame blocks): binning, drift correction (when decided), illumination
    flattening (a gain from the temporal-mean image), mean removal and spatial
    smoothing tied to the wavelength (cut symmetrically at the frame edges, so
    fronts keep their direction and spacing there).  The cleaned movie is held in memory

@@ -129,10 +129,11 @@ def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=No
 
 def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,
            block: int, bar, workers: int, notes: list, brightness=None,
-           field_mask: np.ndarray | None = None) -> None:
+           field_mask: np.ndarray | None = None, shifts: np.ndarray | None = None) -> None:
     """Remove the per-frame brightness (`brightness`, a
-    waves.preprocess.brightness.Brightness, or None), register, flatten,
-    remove the mean and smooth the binned movie in place.
+    waves.preprocess.brightness.Brightness, or None), register (by `shifts`,
+    analysis-grid px, waves.analyse.drift_auto), flatten, remove the mean and
+    smooth the binned movie in place.
     With a `field_mask` (the cell field, preprocess.cellfield) the gain fit,
     the mean and the smoothing see only the field; outside is set to 0."""
     nt = movie.shape[0]
@@ -143,11 +144,6 @@ def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: 
             dish = dish & field_mask
         gain = preprocess.illumination_gain(mean_b, sigma_px=max(mean_b.shape) / 8.0, mask=dish)
         gain = np.maximum(gain, 1e-3 * float(gain.max()))
-    shifts = None
-    if options.register:
-        # registered on the analysis grid; the reference is the temporal median
-        shifts = preprocess.estimate_drift(movie.view())
-        notes.append(f"drift corrected: largest shift {factor * np.abs(shifts).max():.2f} px of the recording")
     reference = mean_b / gain if gain is not None else mean_b
     field = None if field_mask is None or field_mask.all() else field_mask
     norm = preprocess.smooth_space(field.astype(np.float32), sigma_px=sigma_px) if field is not None else None

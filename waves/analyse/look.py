@@ -8,41 +8,77 @@ from waves import preprocess
 from waves.analyse.clean import _Movie
 from waves.measure.period import spectral_period
 
+LOOK_PAD = 4  # zero-padding of the look's spectra: radial bins of a quarter of the field's frequency step
+LOOK_FRAMES = 12
+
 
 def _dominant_wavelength_px(sample: np.ndarray) -> float | None:
-    """Dominant spatial wavelength (pixels) of mean-removed frames from their
-    radially averaged power spectrum; None when there is no clear peak."""
-    x = sample - sample.mean(axis=0, keepdims=True)
-    ny, nx = x.shape[1:]
+    """Dominant spatial wavelength (pixels) of frames from their radially
+    averaged power spectrum (Hann window, zero-padded LOOK_PAD times, the peak
+    placed by a parabola through its bin and neighbours); None when there is no
+    clear peak."""
+    ny, nx = sample.shape[1:]
+    n = LOOK_PAD * max(ny, nx)  # a square padded grid: the same frequency step on both axes
     win = np.outer(np.hanning(ny), np.hanning(nx)).astype(np.float32)
-    power = (np.abs(np.fft.rfft2(x * win)) ** 2).mean(axis=0)
-    fy = np.fft.fftfreq(ny)[:, None]
-    fx = np.fft.rfftfreq(nx)[None, :]
-    df = 1.0 / max(ny, nx)
+    power = np.zeros((n, n // 2 + 1))
+    for frame in sample:
+        x = frame - frame.mean()
+        power += np.abs(np.fft.rfft2(x * win, s=(n, n))) ** 2
+    fy = np.fft.fftfreq(n)[:, None]
+    fx = np.fft.rfftfreq(n)[None, :]
+    df = 1.0 / n
     bins = np.rint(np.hypot(fy, fx) / df).astype(int)
     nb = bins.max() + 1
     radial = np.bincount(bins.ravel(), power.ravel(), nb) / np.maximum(np.bincount(bins.ravel(), None, nb), 1)
-    lo, hi = 2, int(0.5 / df)  # above the field-size scale, below the pixel Nyquist
+    # rings and spirals: the transform of cos(k0 r) falls as 1/sqrt(k) about
+    # its peak, which pulls a ring average's peak to low k; the ring sum
+    # (average times k) does not (the Hankel transform's asymptotics, from memory)
+    radial = radial * np.arange(nb)
+    lo, hi = 2 * LOOK_PAD, int(0.5 / df)  # above the field-size scale, below the pixel Nyquist
     if hi <= lo + 1:
         return None
     k = lo + int(np.argmax(radial[lo:hi]))
     if radial[k] < 4.0 * np.median(radial[lo:hi]):
         return None
+    if lo < k < hi - 1:
+        a, b, c = radial[k - 1], radial[k], radial[k + 1]
+        den = a - 2.0 * b + c
+        k = k + (0.5 * (a - c) / den if den < 0 else 0.0)
     return 1.0 / (k * df)
 
 
 # --------------------------------------------------------------------------- passes 1 and 2
 
 
-def _wavelength_look(data) -> float | None:
-    """Dominant wavelength (recorded pixels) of a dozen frames spread over the movie."""
+def _wavelength_look(data, *, shifts_px: np.ndarray | None = None, lag_frames: int = 0) -> float | None:
+    """Dominant wavelength (recorded pixels) of a dozen frames spread over the movie.
+
+    With `shifts_px` ((t, 2) recorded px, waves.analyse.drift_auto) the frames
+    are put back first and the border strip the shift leaves empty is cut off;
+    with `lag_frames` > 0 the look is on differences frame t + lag minus frame
+    t, so that static (and slowly moving) cell texture drops out and the
+    waves, which change within a quarter period, dominate."""
     nt, ny, nx = data.shape
-    idx = np.linspace(0, nt - 1, min(nt, 12)).astype(int)
+    lag = int(min(max(lag_frames, 0), nt - 1))
+    idx = np.linspace(0, nt - 1 - lag, min(nt - lag, LOOK_FRAMES)).astype(int)
     sample = np.asarray(data[idx], dtype=np.float32)
-    if not np.isfinite(sample).all():
+    later = np.asarray(data[idx + lag], dtype=np.float32) if lag > 0 else None
+    if not np.isfinite(sample).all() or (later is not None and not np.isfinite(later).all()):
         return None  # the binning pass names the bad frames
     # waves span many pixels: a 2x2-binned look finds the wavelength as well, for a quarter of the work
     look_bin = 2 if min(ny, nx) >= 256 else 1
+    if shifts_px is not None and np.abs(shifts_px).max() > 0:
+        sample = preprocess.apply_drift(sample, shifts_px[idx])
+        if later is not None:
+            later = preprocess.apply_drift(later, shifts_px[idx + lag])
+        m = int(np.ceil(np.abs(shifts_px).max()))
+        if min(ny, nx) - 2 * m >= 16:
+            sample = sample[:, m : ny - m, m : nx - m]
+            later = None if later is None else later[:, m : ny - m, m : nx - m]
+    if later is not None:
+        sample = later - sample
+    else:
+        sample = sample - sample.mean(axis=0, keepdims=True)
     lam = _dominant_wavelength_px(preprocess.bin_frames(sample, look_bin) if look_bin > 1 else sample)
     return None if lam is None else lam * look_bin
 

@@ -37,7 +37,7 @@ class AnalysisOptions:
     analysis_bin: int | None = None  # None: bin so a wavelength spans ~24 px
     flatten: bool = True
     brightness: bool = True  # per-frame lamp gain/offset removed, flicker frames interpolated
-    register: bool = False
+    register: bool | str | None = None  # None/'auto': correct drift when it matters; True/'on': always; False/'off': never
     smooth_sigma_um: float | None = None  # None: wavelength / 12, from the first look
     min_amplitude: float | None = None  # signal floor of the amplitude map; None: Otsu
     min_coherence: float = 0.8  # speed only where the wave direction is steady
@@ -66,6 +66,8 @@ class AnalysisOptions:
                 raise WavesError(f"{name} must be positive, got {getattr(self, name)!r}")
         if self.phase_method not in ("hilbert", "delay"):
             raise WavesError(f"phase method must be 'hilbert' or 'delay', got {self.phase_method!r}")
+        if not (self.register is None or isinstance(self.register, bool) or self.register in ("auto", "on", "off")):
+            raise WavesError(f"register must be None, True, False, 'auto', 'on' or 'off', got {self.register!r}")
         if int(self.workers) < 1:
             raise WavesError("workers must be at least 1")
 

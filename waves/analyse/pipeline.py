@@ -9,7 +9,7 @@ import time
 import numpy as np
 
 from waves import preprocess
-from waves.analyse import brightness_pass
+from waves.analyse import brightness_pass, drift_auto
 from waves.analyse import field as cell_field
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
@@ -83,7 +83,11 @@ def analyse_movie(
 
     t0 = time.perf_counter()
     block = max(1, min(64, int(16e6 // max(ny * nx * 4, 1))))
-    lam = _wavelength_look(data)
+    # stage drift, on every run; the first look sees frames put back and differenced
+    drift_plan = drift_auto.plan(data, options.register)
+    timings["drift_estimate_s"] = time.perf_counter() - t0
+    lam = _wavelength_look(data, shifts_px=drift_plan.look_shifts_px,
+                           lag_frames=drift_auto.look_lag_frames(options.period_band_min, dt_min, nt))
     if options.analysis_bin is not None:
         factor = int(options.analysis_bin)
     else:
@@ -96,6 +100,14 @@ def analyse_movie(
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
     nyb, nxb = ny // factor, nx // factor
     fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um)
+    drift = drift_auto.on_grid(drift_plan, factor=factor, shape_b=(nyb, nxb), frame_interval_min=dt_min,
+                               sigma_px=sigma_px)
+    warnings += drift.warnings
+    notes += drift.notes
+    shifts_b = drift.shifts_b
+    if shifts_b is not None and tb is not None:  # per recorded frame -> per frame of the time grid
+        grid = np.arange(tb.n_grid, dtype=np.float64)
+        shifts_b = np.stack([np.interp(grid, tb.slot, shifts_b[:, k]) for k in range(2)], axis=1)
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
@@ -108,7 +120,8 @@ def analyse_movie(
             bright = brightness_pass.estimate(movie, mean_b, block=block,
                                               slow_frames=options.period_band_min[1] / dt_min)
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
-               bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask)
+               bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
+               shifts=shifts_b)
         if bright is not None:
             brightness_pass.replace_flicker(movie, bright)
             brightness_block = brightness_pass.report(bright, notes=notes, warnings=warnings)
@@ -135,6 +148,9 @@ def analyse_movie(
             empty = _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
             empty.summary["recording"] = recording
             empty.summary["brightness"] = brightness_block
+            empty.summary["drift"] = drift.summary
+            empty.tables["drift"] = drift.table
+            empty.maps["covered"] = drift.covered
             return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
@@ -202,10 +218,13 @@ def analyse_movie(
         frame_ok=valid_phase,
         cells=cells,
         margin_px=cell_field.preprocess.margin_px(sigma_px if sigma_px > 0.3 else 0.0, HALO_PX),
+        covered=drift.covered,
     )
     result[0]["recording"] = recording
     result[0]["brightness"] = brightness_block
     result[0]["analysis"]["amplitude_units"] = amplitude_units
+    result[0]["drift"] = drift.summary
+    result[2]["drift"] = drift.table
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),

@@ -65,8 +65,10 @@ def _signal_without_empty_holes(amp, filled, options, core_tracks):
 
 
 def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
-               mean_b, warnings, notes, frame_ok=None, cells=None, margin_px=0.0):
+               mean_b, warnings, notes, frame_ok=None, cells=None, margin_px=0.0, covered=None):
     nyb, nxb = maps.amplitude.shape
+    # pixels some frame has no data for (the border strip a drift correction leaves) are never measured
+    covered = np.ones((nyb, nxb), dtype=bool) if covered is None else np.asarray(covered, dtype=bool)
     dt_min = cal.frame_interval_min
     px_b = cal.pixel_size_um * factor
     # the cell field: nothing measured outside it nor within a margin of its edge (cellfield)
@@ -85,14 +87,14 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     # small low-amplitude holes (spiral cores oscillate weakly) stay inside the signal
     wl_guess = float(np.nanmedian(maps.speed[0] * maps.period[0]))
     hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
-    filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole) & in_field
+    filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole) & in_field & covered
     tracks = _detect_and_track(maps.charges, signal=filled & measured, n_frames=usable, period_frames=period0,
                                frame_ok=frame_ok)
     persistent = tracking.persistent_tracks(
         tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
     )
     # holes without a core are places without signal (obstacles, empty patches): out
-    valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks)
+    valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks) & covered
     valid_field = valid & in_field  # territories fill the whole cell field (margin: nearest territory)
     valid = valid & measured
 
@@ -226,6 +228,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "interval_cv": np.where(valid, maps.interval_cv, np.nan).astype(np.float32),
         "amplitude": maps.amplitude,
         "mean_image": mean_b,
+        "covered": covered,
     }
     if cells is not None:
         from waves.analyse.field import notes_for, summary_block

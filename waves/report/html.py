@@ -26,6 +26,7 @@ import numpy as np
 from waves import __version__
 from waves.errors import InputError, WavesError
 from waves.report import figures as F
+from waves.report.drift import drift_caption, drift_trace_figure
 
 __all__ = ["write_report", "figure_png", "SECTIONS", "REPORT_NAME", "CSP"]
 
@@ -565,6 +566,9 @@ def write_report(
     figs.append(_figure_html(
         F.histograms_figure(maps.get("period_min", np.zeros(0)), maps.get("front_speed_um_per_min", np.zeros(0))),
         "period and speed histograms", "Distribution over pixels; solid line: median; dashed: quartiles."))
+    drift_fig = drift_trace_figure(tables.get("drift"), summary.get("drift"))
+    if drift_fig is not None:
+        figs.append(_figure_html(drift_fig, "stage drift", drift_caption(summary["drift"])))
     bar.update(1)
     if pf is not None:
         d_mm = pf.distance_um / 1000.0

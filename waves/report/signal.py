@@ -232,7 +232,7 @@ def recompute_phase(
             gain = np.maximum(gain, 1e-3 * float(gain.max())).astype(np.float32)
     elif flatten:
         notes.append("illumination not flattened (no mean image given)")
-    if (an.get("options") or {}).get("register"):
+    if (an.get("options") or {}).get("register") is True or (summary.get("drift") or {}).get("corrected"):
         notes.append("drift correction of the analysis is not repeated in these pictures")
     if an.get("phase_method", "hilbert") != "hilbert":
         notes.append("pictures show the analytic-signal phase; the analysis used delay embedding")
