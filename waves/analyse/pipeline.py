@@ -15,6 +15,7 @@ from waves.analyse.strips import _correct_smoothing_bias, _measure_strips, _stri
 from waves.analyse.summary import _empty_result, _grid, _summarise
 from waves.errors import InputError, WavesError
 from waves.phase.analytic import passband_from_periods
+from waves.preprocess.texture import correct_streaming
 from waves.units import Calibration
 
 # --------------------------------------------------------------------------- main entry
@@ -72,6 +73,10 @@ def analyse_movie(
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes)
         bar.close()
+        texture, note = correct_streaming(movie.frames, movie.write, movie.shape, smoothing_px=sigma_px,
+                                          pixel_size_um=px_um, frame_interval_s=cal.frame_interval_s,
+                                          period_band_min=options.period_band_min)
+        notes.extend([note] if note else [])
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         period0, clear_frac = _dominant_period_frames(movie, passband_user)
@@ -89,7 +94,9 @@ def analyse_movie(
                 )
             )
             grid = _grid(cal, factor)
-            return _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty = _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty.summary["texture"] = texture
+            return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
         trim = int(math.ceil(0.75 * period0))
@@ -137,6 +144,7 @@ def analyse_movie(
         warnings=warnings,
         notes=notes,
     )
+    result[0]["texture"] = texture
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),
