@@ -48,7 +48,8 @@ class CellMotion:
 
     velocity_px_per_frame  (2, gy, gx) [drow, dcol] per frame at the tile centres
                            (tiles without texture filled from their neighbours).
-    valid                  (gy, gx) bool: tiles whose texture correlated.
+    valid                  (gy, gx) bool: tiles whose texture correlated and moved steadily
+                           (the same velocity at a short and a long lag).
     centres_row, centres_col  tile centres (pixels of the analysed grid).
     speed_px_per_frame     median speed over the valid tiles (NaN if none).
     valid_fraction         fraction of tiles that are valid.
@@ -201,7 +202,9 @@ def estimate_cell_motion(read, n_frames: int, shape_yx: tuple[int, int], *, smoo
     (<= max_lag_frames) that moves the texture by about `target_shift_px`, where the
     sub-pixel error is small against the shift.  Tiles whose texture does not correlate
     (coefficient < min_coef in most pairs: no cells, noise only) are not valid and get
-    the median of the valid tiles' velocities."""
+    the velocity of the nearest tile that correlated; tiles whose short- and long-lag
+    velocities disagree by more than 40 % (+ 0.15 px over the short lag) are not valid
+    either (the speed and the valid fraction count only steady tiles)."""
     ny, nx = (int(v) for v in shape_yx)
     nt = int(n_frames)
     s = int(tile_px) if tile_px else int(min(32, max(12, round(6 * max(smoothing_px, 1.0)))))
@@ -212,24 +215,33 @@ def estimate_cell_motion(read, n_frames: int, shape_yx: tuple[int, int], *, smoo
     step = max(s // 2, int(math.ceil(max(ny, nx) / 12)))  # at most ~12 x 12 tiles
     lag1 = max(1, min(4, nt - 1))
     m1 = max(3, s // 3)
-    v1, ok1, _ = _pair_velocity(read, nt, lag1, n_pairs=n_pairs, tile_px=s, step_px=step, search_px=m1,
-                                highpass_px=hp, min_coef=min_coef)
+    v1, ok1, (rows1, cols1) = _pair_velocity(read, nt, lag1, n_pairs=n_pairs, tile_px=s, step_px=step,
+                                             search_px=m1, highpass_px=hp, min_coef=min_coef)
     sp1 = float(np.nanmedian(np.hypot(v1[..., 0], v1[..., 1])[ok1])) if ok1.any() else 0.0
     lag = int(np.clip(round(target_shift_px / max(sp1, 1e-6)), lag1, max(lag1, min(max_lag_frames, nt - 1))))
     m = int(max(3, math.ceil(1.5 * sp1 * lag + 2)))
     m = min(m, max(3, (min(ny, nx) - s) // 2 - 1))
     vel, valid, (rows, cols) = _pair_velocity(read, nt, lag, n_pairs=n_pairs, tile_px=s, step_px=step,
                                               search_px=m, highpass_px=hp, min_coef=min_coef)
+    # texture moves steadily: the short and the long lag must agree (waves, which move
+    # an order of magnitude faster and repeat every period, do not give a steady shift)
+    ri = np.clip(np.rint(np.interp(rows, rows1, np.arange(rows1.size))).astype(int), 0, rows1.size - 1)
+    ci = np.clip(np.rint(np.interp(cols, cols1, np.arange(cols1.size))).astype(int), 0, cols1.size - 1)
+    v1n, ok1n = v1[ri][:, ci], ok1[ri][:, ci]
+    tol = 0.4 * np.hypot(vel[..., 0], vel[..., 1]) + 0.15 / lag1
+    with np.errstate(invalid="ignore"):
+        steady = valid & ok1n & (np.hypot(vel[..., 0] - v1n[..., 0], vel[..., 1] - v1n[..., 1]) <= tol)
     speed = np.hypot(vel[..., 0], vel[..., 1])
-    med_speed = float(np.median(speed[valid])) if valid.any() else float("nan")
+    med_speed = float(np.median(speed[steady])) if steady.any() else float("nan")
     filled = np.moveaxis(vel, -1, 0).copy()
-    if valid.any():
-        for k in range(2):
-            filled[k][~valid] = float(np.median(filled[k][valid]))
+    if valid.any():  # tiles without texture take the velocity of the nearest tile with texture
+        _, (ir, ic) = ndi.distance_transform_edt(~valid, return_indices=True)
+        filled = filled[:, ir, ic]
     else:
         filled[:] = 0.0
-    return CellMotion(velocity_px_per_frame=filled.astype(np.float32), valid=valid, centres_row=rows,
-                      centres_col=cols, speed_px_per_frame=med_speed, valid_fraction=float(valid.mean()),
+    filled = np.nan_to_num(filled)
+    return CellMotion(velocity_px_per_frame=filled.astype(np.float32), valid=steady, centres_row=rows,
+                      centres_col=cols, speed_px_per_frame=med_speed, valid_fraction=float(steady.mean()),
                       lag_frames=int(lag))
 
 
@@ -312,11 +324,12 @@ def remove_moving_background(read, write, n_frames: int, shape_yx: tuple[int, in
 # --------------------------------------------------------------------------- the whole step
 
 MIN_WINDOW_WEIGHT = 0.8  # even window shorter than ~1.3 sd (of 2.5): holds part of the wave
-MIN_VALID_FRACTION = 0.2  # fewer tiles with correlating texture: no texture to follow
+MIN_VALID_FRACTION = 0.5  # fewer tiles with steadily moving texture: no cell stream to follow
 MIN_SHIFT_PX = 0.5  # texture moving less than this over the background window is left alone
 
 
-def correct_streaming(read, write, shape_tyx: tuple[int, int, int], *, smoothing_px: float, pixel_size_um: float,
+def correct_streaming(read, write, shape_tyx: tuple[int, int, int], *,
+                      smoothing_px: float, pixel_size_um: float,
                       frame_interval_s: float, period_band_min: tuple[float, float],
                       block: int = 32) -> tuple[dict, str | None]:
     """Estimate the cell texture's motion on the cleaned movie and, where the cells
