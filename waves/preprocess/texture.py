@@ -326,6 +326,10 @@ def remove_moving_background(read, write, n_frames: int, shape_yx: tuple[int, in
 MIN_WINDOW_WEIGHT = 0.8  # even window shorter than ~1.3 sd (of 2.5): holds part of the wave
 MIN_VALID_FRACTION = 0.5  # fewer tiles with steadily moving texture: no cell stream to follow
 MIN_SHIFT_PX = 0.5  # texture moving less than this over the background window is left alone
+# aggregating amoebae crawl and stream at up to ~20 um/min (from memory, no source); waves
+# run at 100-400 um/min.  A steady "motion" faster than this is the waves themselves
+# (an untextured field tracked by the tiles), never corrected
+MAX_CELL_SPEED_UM_PER_MIN = 40.0
 
 
 def correct_streaming(read, write, shape_tyx: tuple[int, int, int], *,
@@ -358,7 +362,8 @@ def correct_streaming(read, write, shape_tyx: tuple[int, int, int], *,
     if np.isfinite(speed):
         block_out["cell_motion_um_per_min"] = speed * to_um_per_min
     moving = (motion.valid_fraction >= MIN_VALID_FRACTION and np.isfinite(speed)
-              and speed * float(np.abs(offsets).max()) >= MIN_SHIFT_PX)
+              and speed * float(np.abs(offsets).max()) >= MIN_SHIFT_PX
+              and speed * to_um_per_min <= MAX_CELL_SPEED_UM_PER_MIN)
     if not moving:
         return block_out, None
     rim = max(2, int(math.ceil(smoothing_px)))
