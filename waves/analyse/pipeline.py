@@ -26,6 +26,7 @@ from waves.analyse.summary import _empty_result, _grid, _summarise
 from waves.analyse.timeaxis import GAP_MIN_FRAMES, margin_record, recording_block, time_axis
 from waves.errors import InputError, WavesError
 from waves.phase.analytic import passband_from_periods
+from waves.preprocess.texture import correct_streaming
 from waves.units import Calibration
 
 # --------------------------------------------------------------------------- main entry
@@ -128,6 +129,10 @@ def analyse_movie(
         else:
             brightness_block = {"method": "off (--no-brightness)"}
         bar.close()
+        texture, note = correct_streaming(movie.frames, movie.write, movie.shape, smoothing_px=sigma_px,
+                                          pixel_size_um=px_um, frame_interval_s=cal.frame_interval_s,
+                                          period_band_min=options.period_band_min)
+        notes.extend([note] if note else [])
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         period0, clear_frac = _dominant_period_frames(movie, passband_user)
@@ -151,6 +156,7 @@ def analyse_movie(
             empty.summary["drift"] = drift.summary
             empty.tables["drift"] = drift.table
             empty.maps["covered"] = drift.covered
+            empty.summary["texture"] = texture
             return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
@@ -225,6 +231,7 @@ def analyse_movie(
     result[0]["analysis"]["amplitude_units"] = amplitude_units
     result[0]["drift"] = drift.summary
     result[2]["drift"] = drift.table
+    result[0]["texture"] = texture
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),
