@@ -134,7 +134,11 @@ def test_user_errors():
     with pytest.raises(InputError, match="mask is empty"):
         estimate_brightness(np.ones((5, 4, 4)), mask=np.zeros((4, 4), bool), slow_frames=10)
     with pytest.raises(InputError, match="no light"):
-        brightness_correction(np.array([1.0, 0.0, 1.0]), np.zeros(3), slow_frames=10)
+        brightness_correction(np.array([0.0, 0.0, 1.0]), np.zeros(3), slow_frames=10)
+    # a single blank frame is no error: it is flagged (and interpolated by the pipeline)
+    g = np.ones(30)
+    g[7] = 0.0
+    assert brightness_correction(g, np.zeros(30), slow_frames=10).flicker_frames == [7]
     with pytest.raises(InputError, match="no light"):
         frame_brightness(np.zeros((3, 4)), np.zeros(4))
 

@@ -73,15 +73,18 @@ def analyse_movie(
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar)
         bright = None
         if options.brightness:  # lamp fade and flicker (waves.preprocess.brightness)
+            tb = time.perf_counter()
             bright = brightness_pass.estimate(movie, mean_b, block=block,
                                               slow_frames=options.period_band_min[1] / dt_min)
+            timings["brightness_s"] = time.perf_counter() - tb
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright)
         if bright is not None:
             brightness_pass.replace_flicker(movie, bright)
             brightness_block = brightness_pass.report(bright, notes=notes, warnings=warnings)
         else:
-            brightness_block = {"method": "off (--no-brightness)"}
+            brightness_block = {"method": "not estimated: the mean image has no light (background-subtracted "
+                                          "data)" if options.brightness else "off (--no-brightness)"}
         bar.close()
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()

@@ -58,6 +58,8 @@ FLICKER_Z = 8.0
 # several and are left in (a very clean movie has a tiny MAD; without this
 # floor a 0.3 % wobble would be called flicker).
 FLICKER_MIN_JUMP = 0.01
+# A frame with less than this fraction of the median gain is blank (flagged as flicker).
+BLANK_GAIN = 0.05
 # Regression pixels: at most this many, spread evenly over the cell field.
 MAX_SAMPLE_PIXELS = 20000
 _HUBER_K = 1.345  # Huber's constant: 95 % efficiency for Gaussian residuals (Huber 1981)
@@ -194,19 +196,21 @@ def brightness_correction(gain_raw, offset_raw, *, slow_frames: float) -> Bright
     o = _as_real_array(offset_raw, "offset", (1,)).astype(np.float64)
     if g.shape != o.shape:
         raise InputError("gain and offset must have one value per frame each")
-    if not (g > 0).all():
-        raise InputError("a frame has no light (gain not positive); remove blank frames with --frames")
+    med = float(np.median(g))
+    if not med > 0:
+        raise InputError("most frames have no light (gain not positive): no brightness to correct")
+    blank = ~(g > BLANK_GAIN * med)  # dark frames (a shutter that did not open): flicker outright
     sigma = 0.4 * _positive(slow_frames, "slow_frames")
     n = g.size
-    logg = np.log(g)
-    good = np.ones(n, dtype=bool)
+    logg = np.log(np.maximum(g, BLANK_GAIN * med))
+    good = ~blank
     z = np.zeros(n)
     for _ in range(3):  # trend without the flagged frames, then flag again
         trend = _local_linear_1d(logg, good.astype(np.float64), sigma)
         r = logg - trend
         scale = 1.4826 * float(np.median(np.abs(r[good] - np.median(r[good]))))
         z = r / max(scale, 1e-12)
-        new = ~((np.abs(z) > FLICKER_Z) & (np.abs(np.expm1(r)) > FLICKER_MIN_JUMP))
+        new = ~((np.abs(z) > FLICKER_Z) & (np.abs(np.expm1(r)) > FLICKER_MIN_JUMP)) & ~blank
         if (new == good).all() or new.sum() < max(3, n // 2):
             break
         good = new
