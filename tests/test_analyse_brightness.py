@@ -152,3 +152,25 @@ def test_amplitude_is_relative_so_the_signal_floor_does_not_follow_the_light(rel
         assert a.summary["analysis"]["amplitude_units"] == "fraction of the local mean brightness"
         # a 4 % modulation of the scattering: the band-passed amplitude is a fraction of it
         assert 0.002 < float(np.nanmedian(amp)) < 0.04
+
+
+@pytest.mark.parametrize("off", [False, True])
+def test_summary_json_brightness_block_and_cli_switch(off, tmp_path):
+    # the block reaches summary.json through the command line; --no-brightness switches it off
+    import json
+
+    from waves.cli import main
+    from waves.synthetic import write_recording
+
+    rec = _rec("target", 2, **FADE)
+    path = write_recording(rec, tmp_path / "fading.ome.tif")
+    args = ["analyse", path, "--out", str(tmp_path / "out"), "--quiet", "--no-report"]
+    assert main(args + (["--no-brightness"] if off else [])) == 0
+    s = json.loads((tmp_path / "out" / "summary.json").read_text())
+    if off:
+        assert s["brightness"] == {"method": "off (--no-brightness)"}
+        assert s["analysis"]["options"]["brightness"] is False
+    else:
+        assert s["brightness"]["flicker_frames"] == list(rec.truth.flicker_frames)  # synthetic truth
+        assert s["brightness"]["gain_range"][0] < 0.85 < 1.15 < s["brightness"]["gain_range"][1]  # 40 % fade
+        assert any("flicker" in w for w in s["warnings"])
