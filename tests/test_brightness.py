@@ -178,3 +178,15 @@ def test_padding_is_cut_off_and_defaults_match_scipy():
     y = x.copy()
     analytic_signal(y, detrend_degree=2)
     np.testing.assert_array_equal(y, x)  # the input is left alone unless overwrite_x
+
+
+def test_detrend_equals_a_least_squares_polynomial_fit():
+    from waves.phase.analytic import _detrend_poly
+
+    rng = np.random.default_rng(3)
+    x = rng.normal(size=(50, 70, 90)).astype(np.float32)  # 6300 pixels: more than one chunk
+    t = np.linspace(-1, 1, 50)
+    v = np.vander(t, 3, increasing=True)
+    coef = np.linalg.lstsq(v, x.reshape(50, -1).astype(np.float64), rcond=None)[0]  # numpy reference
+    expected = x.reshape(50, -1) - v @ coef
+    np.testing.assert_allclose(_detrend_poly(x.copy(), 2).reshape(50, -1), expected, atol=1e-5)
