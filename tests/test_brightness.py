@@ -44,7 +44,7 @@ def test_gain_follows_the_lamp_and_flicker_truth(kind, seed, law):
     assert b.flicker_frames == list(rec.truth.flicker_frames)
     steady = ~b.flicker
     truth = rec.truth.gain_t / np.mean(rec.truth.gain_t[steady])
-    # measured max error 0.4-0.9 % (the field's mean brightness rises and falls with the waves,
+    # measured max error 0.6-1.2 % (the field's mean brightness rises and falls with the waves,
     # 8-bit rounding and clipping); 1.5 %, while the fade itself is 40 %
     np.testing.assert_allclose(b.gain_raw, truth, rtol=0.015)
     lamp = rec.truth.lamp_t / np.mean(rec.truth.lamp_t[steady])
@@ -72,7 +72,7 @@ def test_no_false_flicker_on_noisy_movies(kind, seed, fade):
     rec = _rec(kind, seed, lamp_fade=fade)
     b = estimate_brightness(rec.data, slow_frames=SLOW)
     assert b.flicker_frames == [] == list(rec.truth.flicker_frames)
-    # the largest steady-frame score stays far below the threshold (measured |z| <= 3.0)
+    # the largest steady-frame score stays far below the threshold (measured |z| <= 3.4)
     assert np.abs(b.z).max() < 5.0
 
 
