@@ -14,6 +14,7 @@ from synthetic_truth import grid_xy, median_truth, spiral_front_speed, window_tr
 import waves.analyse.pipeline as analyse_pipeline  # patch targets: where each name is looked up
 import waves.analyse.strips as analyse_strips
 import waves.analyse.summary as analyse_summary
+import waves.preprocess as waves_preprocess
 from waves import synthetic as S
 from waves.analyse import AnalysisOptions, analyse_movie
 from waves.render import DarkfieldStyle
@@ -123,13 +124,17 @@ def test_dispersion_points_match_the_truth_point_by_point(field):
 # ----------------------------------------------------------------- cleaning steps that must matter
 
 
-@pytest.mark.parametrize("flatten", [True, False])
-def test_illumination_flattening_keeps_a_dim_core(flatten):
+@pytest.mark.parametrize("flatten, relative", [(True, True), (False, True), (False, False)])
+def test_illumination_flattening_keeps_a_dim_core(flatten, relative, monkeypatch):
     # the light falls off linearly from 1 on the left to 0.2 on the right (a gain
     # applied here, so its truth is known); the spiral's core sits in the dim part.
     # Flattened, the whole field carries a signal and the core is found where it is;
-    # without flattening the dim third drops below the amplitude floor (measured
-    # signal fraction 0.63) and the core is lost, so the same check must fail.
+    # unflattened too, since the amplitude floor is set on the amplitude relative to the
+    # local brightness (preprocess.relative_amplitude).  With both off (the amplitude in
+    # counts, unflattened) the dim third drops below the amplitude floor (measured signal
+    # fraction 0.63) and the core is lost, so the same check must fail.
+    if not relative:
+        monkeypatch.setattr(waves_preprocess, "relative_amplitude", lambda amp, *a, **k: amp)
     m = _movie([S.SpiralSource(1400.0, 1000.0, PERIOD)], style=DarkfieldStyle(illumination=0.0, noise=0.01))
     gain = np.linspace(1.0, 0.2, m.data.shape[2], dtype=np.float32)
     dim = m.data.astype(np.float32) * gain
@@ -138,7 +143,7 @@ def test_illumination_flattening_keeps_a_dim_core(flatten):
     # achieved with flattening: signal fraction 1.0, core 7.1 um off (see test_analyse.CORE_TOL_UM)
     ok = (s["analysis"]["signal_fraction"] > 0.95 and len(cores) == 1
           and np.hypot(cores[0]["x_um"] - 1400.0, cores[0]["y_um"] - 1000.0) < 12.0)
-    assert ok == flatten
+    assert ok == (flatten or relative)
 
 
 @pytest.mark.parametrize("detrend", [True, False])

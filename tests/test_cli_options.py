@@ -186,10 +186,12 @@ def test_smooth_sets_the_gaussian_sigma_in_um(tmp_path):
 # --------------------------------------------------------------------------- --no-flatten
 
 
-def test_no_flatten_leaves_the_illumination_in_the_amplitude(tmp_path):
+def test_amplitude_is_relative_with_and_without_flatten(tmp_path):
     # truth: the renderer's static gain (illumination only: no texture), spanning 0.6..1
-    # (waves.render); a plane wave has the same band amplitude everywhere, so the amplitude
-    # map is the gain times a constant unflattened and a constant when flattened
+    # (waves.render); a plane wave has the same band amplitude everywhere.  The amplitude map
+    # is in units of the local mean brightness (fractional modulation), so it is a constant
+    # whether the movie was flattened or not (in counts, unflattened, it followed the gain:
+    # 1st-99th percentile ratio 1.34, correlation 0.98 with the gain)
     style = DarkfieldStyle(noise=0.01, texture=0.0, illumination=0.4, drift=0.0)
     movie = _movie((120, 128, 128), [S.PlanarSource(30.0, 6.0)], style=style, seed=5)
     gain = DarkfieldRenderer((128, 128), style=style, seed=5).gain_yx
@@ -209,14 +211,10 @@ def test_no_flatten_leaves_the_illumination_in_the_amplitude(tmp_path):
         lo, hi = np.percentile(a, [1, 99])
         glo, ghi = np.percentile(a / g, [1, 99])
         spread[tag] = (hi / lo, ghi / glo, np.corrcoef(a, g)[0, 1])
-    # flattened: the amplitude is even (achieved 1st-99th percentile ratio 1.07; the gain's
-    # own is 1.6), tolerance 1.15; unflattened it is not (achieved 1.34) but the amplitude
-    # divided by the true gain is (achieved 1.08, tolerance 1.15) and follows it
-    # (correlation achieved 0.98)
+    # flattened and not: the amplitude is even (achieved 1st-99th percentile ratio 1.07 both;
+    # the gain's own is 1.6), tolerance 1.15
     assert spread["flat"][0] < 1.15
-    assert spread["raw"][0] > 1.25
-    assert spread["raw"][1] < 1.15
-    assert spread["raw"][2] > 0.95
+    assert spread["raw"][0] < 1.15
 
 
 # --------------------------------------------------------------------------- --phase delay

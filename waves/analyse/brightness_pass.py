@@ -20,17 +20,25 @@ from waves.preprocess import brightness as pb
 FADE_NOTE_PERCENT = 10.0  # a slow brightness change above this is named in the notes
 
 
-def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: float) -> pb.Brightness:
+def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: float) -> pb.Brightness | None:
     """Per-frame gain and offset of the binned movie against its temporal mean,
-    over the dish (the dark surround would only add noise to the fit)."""
-    field = preprocess.dish_mask(mean_b) if float(mean_b.max()) > 0 else np.ones(mean_b.shape, bool)
+    over the dish (the dark surround would only add noise to the fit); None
+    when the mean image has no light (background-subtracted data: a gain
+    means nothing there)."""
+    if not float(mean_b.max()) > 0:
+        return None
+    field = preprocess.dish_mask(mean_b)
     idx = pb.sample_pixels(field)
-    nt = movie.shape[0]
-    samples = np.empty((nt, idx.size), dtype=np.float32)
-    for t0 in range(0, nt, block):
+    ref = mean_b.ravel()[idx]
+    if not float(ref.mean()) > 0:
+        return None
+    gains, offsets = [], []
+    for t0 in range(0, movie.shape[0], block):  # block by block: memory bounded by the block
         b = movie.frames(t0, t0 + block)
-        samples[t0 : t0 + len(b)] = b.reshape(len(b), -1)[:, idx]
-    gain, offset = pb.frame_brightness(samples, mean_b.ravel()[idx])
+        g, o = pb.frame_brightness(b.reshape(len(b), -1)[:, idx], ref)
+        gains.append(g)
+        offsets.append(o)
+    gain, offset = np.concatenate(gains), np.concatenate(offsets)
     return pb.brightness_correction(gain, offset, slow_frames=slow_frames)
 
 

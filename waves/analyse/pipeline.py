@@ -118,8 +118,10 @@ def analyse_movie(
                                 wavelength_px=lam / factor if lam is not None else None)
         bright = None
         if options.brightness:  # lamp fade and flicker (waves.preprocess.brightness)
+            tb = time.perf_counter()
             bright = brightness_pass.estimate(movie, mean_b, block=block,
                                               slow_frames=options.period_band_min[1] / dt_min)
+            timings["brightness_s"] = time.perf_counter() - tb
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
                shifts=shifts_b)
@@ -127,7 +129,8 @@ def analyse_movie(
             brightness_pass.replace_flicker(movie, bright)
             brightness_block = brightness_pass.report(bright, notes=notes, warnings=warnings)
         else:
-            brightness_block = {"method": "off (--no-brightness)"}
+            brightness_block = {"method": "not estimated: the mean image has no light (background-subtracted "
+                                          "data)" if options.brightness else "off (--no-brightness)"}
         bar.close()
         texture, note = correct_streaming(movie.frames, movie.write, movie.shape, smoothing_px=sigma_px,
                                           pixel_size_um=px_um, frame_interval_s=cal.frame_interval_s,

@@ -156,7 +156,9 @@ def _detrend_poly(x: np.ndarray, degree: int) -> np.ndarray:
     q, _ = np.linalg.qr(np.vander(t, degree + 1, increasing=True))
     q = q.astype(np.float32)
     flat = x.reshape(n, -1)
-    flat -= q @ (q.T @ flat)
+    for c0 in range(0, flat.shape[1], 4096):  # pixel chunks: the fitted trend never costs a whole copy
+        part = flat[:, c0 : c0 + 4096]
+        part -= q @ (q.T @ part)
     return x
 
 
