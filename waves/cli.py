@@ -16,6 +16,7 @@ from collections.abc import Sequence
 from waves import __version__
 from waves.cli_common import (
     add_analysis_options,
+    add_cell_mask_option,
     add_calibration_options,
     analysis_options_from_args,
     parse_frames,
@@ -73,6 +74,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_calibration_options(p_an)
     _add_selection_options(p_an)
     add_analysis_options(p_an)
+    add_cell_mask_option(p_an)
     p_an.add_argument("--quiet", action="store_true", help="no progress bars")
     p_an.add_argument(
         "--no-report", action="store_true", help="do not write report.html (figures, movie)"
@@ -190,6 +192,7 @@ def _cmd_analyse(args: argparse.Namespace) -> int:
         pixel_size_um=args.pixel_size_um,
         frame_interval_s=args.frame_interval_s,
         progress=not args.quiet,
+        cell_mask=args.mask,
     )
     summary_path = pathlib.Path(args.out) / "summary.json"
     print("\n".join(summary_lines(result.summary)))

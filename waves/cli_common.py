@@ -11,6 +11,7 @@ from waves.errors import WavesError
 __all__ = [
     "add_calibration_options",
     "add_analysis_options",
+    "add_cell_mask_option",
     "analysis_options_from_args",
     "parse_frames",
     "parse_settings",
@@ -59,6 +60,16 @@ def add_analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-flatten", action="store_true", help="do not correct uneven illumination")
     p.add_argument(
         "--memory-mb", type=float, default=400.0, metavar="MB", help="working-memory budget of an analysis"
+    )
+
+
+def add_cell_mask_option(p: argparse.ArgumentParser) -> None:
+    """--mask FILE.tif: where the cells are (nonzero = cells), instead of the automatic cell field."""
+    p.add_argument(
+        "--mask",
+        metavar="FILE.tif",
+        help="single-image TIFF of the recorded frame size, nonzero where cells are; nothing is measured "
+        "elsewhere (default: the cell field is found automatically)",
     )
 
 

@@ -109,15 +109,17 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     m = np.asarray(mean, dtype=np.float64)
     sd = np.asarray(std, dtype=np.float64)
     ok = np.ones(m.shape, bool) if exclude is None else ~exclude
+    if ok.sum() < 16:
+        return np.zeros(m.shape, dtype=bool)
     with np.errstate(invalid="ignore", divide="ignore"):
         rel = np.where(m > 0, sd / m, 0.0)
     # k from pixels that take part in the waves (not the empty surround, not the specks)
-    w = (ok & (rel > 0.5 * float(np.median(rel[ok])))).astype(np.float64) if ok.any() else ok.astype(np.float64)
+    w = (ok & (rel > 0.5 * float(np.median(rel[ok])))).astype(np.float64)
     sig = max(2.0 * float(radius_px), 2.0)
     g = lambda a: ndi.gaussian_filter(a, sig, mode="nearest")  # noqa: E731
     local_level = g(m * ok) / np.maximum(g(ok.astype(np.float64)), 1e-12)
     k = g(sd * w) / np.maximum(g(m * w), 1e-300)
-    if not np.isfinite(k).all() or float(np.median(k[ok])) <= 0:
+    if not w.any() or not np.isfinite(k).all() or float(np.median(k[ok])) <= 0:
         return np.zeros(m.shape, dtype=bool)
     added = m - sd / np.maximum(k, 1e-300)
     level = np.maximum(local_level, 1e-300)
