@@ -296,24 +296,28 @@ def _remove_small(mask: np.ndarray, min_px: int) -> np.ndarray:
 
 def _outside_regions(spread: np.ndarray, min_px: int) -> np.ndarray:
     """Large regions without temporal variance: the lower of Otsu's two
-    classes of log(spread) (smoothed over one pixel so the grain of the cells
-    does not break the field), when the classes' medians differ by more than
-    OUTSIDE_CONTRAST, keeping only components of at least `min_px` pixels."""
+    classes of log(spread), when the classes' medians differ by more than
+    OUTSIDE_CONTRAST, keeping only components of at least `min_px` pixels.
+    The threshold is raised to a third of the cells' median spread when
+    Otsu's lies lower: with a contrast of 100 or more Otsu's midpoint (in
+    log) would count pixels a tenth on cells as cells."""
     from skimage.filters import threshold_otsu
 
     pos = spread > 0
     if pos.sum() < 16:
         return ~pos
     floor = float(spread[pos].min())
-    logs = ndi.gaussian_filter(np.log(np.maximum(spread, floor)), 1.0, mode="nearest")
+    logs = np.log(np.maximum(spread, floor))
     if float(logs.max() - logs.min()) < 1e-9:
         return np.zeros(spread.shape, dtype=bool)
     t = threshold_otsu(logs)
     low, high = logs[logs <= t], logs[logs > t]
     if low.size == 0 or high.size == 0 or np.median(high) - np.median(low) < math.log(OUTSIDE_CONTRAST):
         return np.zeros(spread.shape, dtype=bool)
+    # a pixel half on cells waves half as much: the edge is where the spread falls to ~1/3 of the cells'
+    t = max(t, float(np.median(high)) - math.log(3.0))
     out = _remove_small(logs <= t, min_px)
-    # holes of cells smaller than an outside region inside it are outside too, and vice versa
+    # islands and holes smaller than an outside region: the grain of the cells, a weak spot
     out = ~_remove_small(~out, min_px)
     return out
 
