@@ -16,8 +16,8 @@ from collections.abc import Sequence
 from waves import __version__
 from waves.cli_common import (
     add_analysis_options,
-    add_cell_mask_option,
     add_calibration_options,
+    add_cell_mask_option,
     analysis_options_from_args,
     parse_frames,
     summary_lines,

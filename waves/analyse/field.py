@@ -116,3 +116,11 @@ def notes_for(block: dict) -> list[str]:
     if ex["saturated"] or ex["dead"]:
         out.append(f"camera pixels left out: {ex['saturated']} saturated, {ex['dead']} dead (constant)")
     return out
+
+
+def attach_to_empty(analysis, field: preprocess.CellField, *, factor: int) -> None:
+    """The cell-field block, notes and map of an analysis that found no waves (in place)."""
+    block = summary_block(field, factor=factor, margin_um=0.0, measured=field.mask)
+    analysis.summary["cell_field"] = block
+    analysis.summary["analysis"]["notes"].extend(notes_for(block))
+    analysis.maps["cell_mask"] = field.mask.astype(np.uint8)

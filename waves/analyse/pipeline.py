@@ -98,7 +98,9 @@ def analyse_movie(
                 )
             )
             grid = _grid(cal, factor)
-            return _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            empty = _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
+            cell_field.attach_to_empty(empty, cells, factor=factor)
+            return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
         trim = int(math.ceil(0.75 * period0))
