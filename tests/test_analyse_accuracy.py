@@ -15,6 +15,7 @@ import waves.analyse.pipeline as analyse_pipeline  # patch targets: where each n
 import waves.analyse.strips as analyse_strips
 import waves.analyse.summary as analyse_summary
 import waves.preprocess as waves_preprocess
+from waves import preprocess
 from waves import synthetic as S
 from waves.analyse import AnalysisOptions, analyse_movie
 from waves.render import DarkfieldStyle
@@ -179,6 +180,11 @@ def test_speeds_next_to_a_dead_patch_are_dropped_or_right(guard, monkeypatch):
     # here the same check must fail.
     if not guard:
         monkeypatch.setattr(analyse_summary, "kernel_saw_signal", lambda amp, sigma_px: np.ones(amp.shape, bool))
+        # the cell field (preprocess.cellfield) finds the disk too and keeps the smoothing
+        # out of it; both guards off here
+        monkeypatch.setattr(analyse_pipeline.cell_field, "find", lambda p, mean_b, **kw: preprocess.CellField(
+            mask=np.ones(mean_b.shape, bool), outside=np.zeros(mean_b.shape, bool),
+            specks=np.zeros(mean_b.shape, bool), uncovered=np.zeros(mean_b.shape, bool), source="automatic"))
     m = _movie([S.TargetSource(500.0, 1000.0, PERIOD)])
     data = m.data.astype(np.float32)
     yy, xx = np.mgrid[0:200, 0:200]

@@ -18,6 +18,7 @@ from waves.cli_common import (
     add_analysis_options,
     add_calibration_options,
     add_times_option,
+    add_cell_mask_option,
     analysis_options_from_args,
     parse_frames,
     summary_lines,
@@ -76,6 +77,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_times_option(p_an)
     _add_selection_options(p_an)
     add_analysis_options(p_an)
+    add_cell_mask_option(p_an)
     p_an.add_argument("--quiet", action="store_true", help="no progress bars")
     p_an.add_argument(
         "--no-report", action="store_true", help="do not write report.html (figures, movie)"
@@ -211,6 +213,7 @@ def _cmd_analyse(args: argparse.Namespace) -> int:
         frame_interval_s=args.frame_interval_s,
         times_csv=args.times_csv,
         progress=not args.quiet,
+        cell_mask=args.mask,
     )
     summary_path = pathlib.Path(args.out) / "summary.json"
     print("\n".join(summary_lines(result.summary)))

@@ -12,6 +12,7 @@ __all__ = [
     "add_calibration_options",
     "add_analysis_options",
     "add_times_option",
+    "add_cell_mask_option",
     "analysis_options_from_args",
     "parse_frames",
     "parse_settings",
@@ -77,6 +78,16 @@ def add_analysis_options(p: argparse.ArgumentParser) -> None:
                    help="do not correct the lamp fade and flicker (per-frame brightness)")
     p.add_argument(
         "--memory-mb", type=float, default=400.0, metavar="MB", help="working-memory budget of an analysis"
+    )
+
+
+def add_cell_mask_option(p: argparse.ArgumentParser) -> None:
+    """--mask FILE.tif: where the cells are (nonzero = cells), instead of the automatic cell field."""
+    p.add_argument(
+        "--mask",
+        metavar="FILE.tif",
+        help="single-image TIFF of the recorded frame size, nonzero where cells are; nothing is measured "
+        "elsewhere (default: the cell field is found automatically)",
     )
 
 

@@ -115,12 +115,16 @@ def analyse_file(
     frame_interval_s: float | None = None,
     progress: bool = False,
     times_csv=None,
+    cell_mask=None,
 ):
     """Read a stack, analyse it and, when `out` is given, write the results
     folder (summary.json, CSV tables, calibrated maps).  Returns the
     `waves.analyse.Analysis` with its summary's `source` filled in.
     times_csv: a CSV of per-frame times (s), see `waves.io.read_stack`; the
     stack's times (the file's own, else nominal) drive the time axis.
+
+    `cell_mask` is a single-image TIFF (path) or a 2-D array of the file's
+    frame size, nonzero where cells are (`--mask`); binned like the stack.
 
     Nothing is written until the analysis has finished, so a failure leaves
     an earlier result in `out` as it was.
@@ -138,6 +142,7 @@ def analyse_file(
         min_frames=8,
         times_csv=times_csv,
     )
+    mask = _read_cell_mask(cell_mask, stack, bin) if cell_mask is not None else None
     scratch = None
     if out is not None:
         scratch = pathlib.Path(out)
@@ -151,6 +156,7 @@ def analyse_file(
         scratch_dir=scratch,
         progress=progress,
         times_s=stack.times_s,
+        cell_mask=mask,
     )
     rec = analysis.summary.get("recording")
     if rec is not None:
@@ -180,6 +186,29 @@ def analyse_file(
     if out is not None:
         write_analysis(analysis, out, source=analysis.summary["source"])
     return analysis
+
+
+def _read_cell_mask(cell_mask, stack, bin_factor: int) -> np.ndarray:
+    """The user's cell mask (a TIFF path or an array of the file's frame
+    size, nonzero = cells) on the grid of the stack as read (binned by
+    `bin_factor`: a binned pixel is in when at least half of it is)."""
+    from waves.preprocess import bin_frames, user_cell_mask
+
+    if isinstance(cell_mask, np.ndarray):
+        arr = cell_mask
+    else:
+        arr = io.read_map(cell_mask).data
+    b = int(bin_factor)
+    ny, nx = (int(v) for v in stack.data.shape[1:])
+    arr = np.asarray(arr)
+    if b > 1 and arr.ndim == 2 and (arr.shape[0] // b, arr.shape[1] // b) == (ny, nx):
+        arr = arr[: ny * b, : nx * b]  # the rows and columns the binned read drops
+        mask = user_cell_mask(arr, (ny * b, nx * b))
+        mask = bin_frames(mask.astype(np.float32), b) >= 0.5
+        if not mask.any():
+            raise InputError(f"the cell mask marks no {b} x {b} block as cells (at least half of it)")
+        return mask
+    return user_cell_mask(arr, (ny, nx))
 
 
 _TIME_KEYS = ("t_min", "first_min", "last_min")

@@ -8,6 +8,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from waves import preprocess
+from waves.errors import InputError
 
 
 @dataclass
@@ -33,7 +34,14 @@ def plan(data, *, factor: int, cell_mask: np.ndarray | None, pixel_size_um: floa
         bad = preprocess.BadPixels(saturated=bad.saturated, dead=bad.dead, specks=np.zeros_like(bad.specks),
                                    full_scale=bad.full_scale, n_frames_scanned=bad.n_frames_scanned)
     good = ~bad.any
+    if not good.any():  # a flat movie: every pixel constant; the binning pass says so
+        z = np.zeros_like(good)
+        bad = preprocess.BadPixels(saturated=z, dead=z, specks=z, full_scale=bad.full_scale,
+                                   n_frames_scanned=bad.n_frames_scanned)
+        good = ~z
     weight = good if user is None else good & user
+    if not weight.any():
+        raise InputError("every pixel inside the cell mask is saturated or dead; check the mask and the movie")
     nyb, nxb = ny // factor, nx // factor
     if weight.all():
         weight = coverage = None
@@ -108,3 +116,11 @@ def notes_for(block: dict) -> list[str]:
     if ex["saturated"] or ex["dead"]:
         out.append(f"camera pixels left out: {ex['saturated']} saturated, {ex['dead']} dead (constant)")
     return out
+
+
+def attach_to_empty(analysis, field: preprocess.CellField, *, factor: int) -> None:
+    """The cell-field block, notes and map of an analysis that found no waves (in place)."""
+    block = summary_block(field, factor=factor, margin_um=0.0, measured=field.mask)
+    analysis.summary["cell_field"] = block
+    analysis.summary["analysis"]["notes"].extend(notes_for(block))
+    analysis.maps["cell_mask"] = field.mask.astype(np.uint8)

@@ -160,6 +160,7 @@ def analyse_movie(
             empty.tables["drift"] = drift.table
             empty.maps["covered"] = drift.covered
             empty.summary["texture"] = texture
+            cell_field.attach_to_empty(empty, cells, factor=factor)
             return empty
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))

@@ -109,15 +109,17 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     m = np.asarray(mean, dtype=np.float64)
     sd = np.asarray(std, dtype=np.float64)
     ok = np.ones(m.shape, bool) if exclude is None else ~exclude
+    if ok.sum() < 16:
+        return np.zeros(m.shape, dtype=bool)
     with np.errstate(invalid="ignore", divide="ignore"):
         rel = np.where(m > 0, sd / m, 0.0)
     # k from pixels that take part in the waves (not the empty surround, not the specks)
-    w = (ok & (rel > 0.5 * float(np.median(rel[ok])))).astype(np.float64) if ok.any() else ok.astype(np.float64)
+    w = (ok & (rel > 0.5 * float(np.median(rel[ok])))).astype(np.float64)
     sig = max(2.0 * float(radius_px), 2.0)
     g = lambda a: ndi.gaussian_filter(a, sig, mode="nearest")  # noqa: E731
     local_level = g(m * ok) / np.maximum(g(ok.astype(np.float64)), 1e-12)
     k = g(sd * w) / np.maximum(g(m * w), 1e-300)
-    if not np.isfinite(k).all() or float(np.median(k[ok])) <= 0:
+    if not w.any() or not np.isfinite(k).all() or float(np.median(k[ok])) <= 0:
         return np.zeros(m.shape, dtype=bool)
     added = m - sd / np.maximum(k, 1e-300)
     level = np.maximum(local_level, 1e-300)
@@ -294,24 +296,28 @@ def _remove_small(mask: np.ndarray, min_px: int) -> np.ndarray:
 
 def _outside_regions(spread: np.ndarray, min_px: int) -> np.ndarray:
     """Large regions without temporal variance: the lower of Otsu's two
-    classes of log(spread) (smoothed over one pixel so the grain of the cells
-    does not break the field), when the classes' medians differ by more than
-    OUTSIDE_CONTRAST, keeping only components of at least `min_px` pixels."""
+    classes of log(spread), when the classes' medians differ by more than
+    OUTSIDE_CONTRAST, keeping only components of at least `min_px` pixels.
+    The threshold is raised to a third of the cells' median spread when
+    Otsu's lies lower: with a contrast of 100 or more Otsu's midpoint (in
+    log) would count pixels a tenth on cells as cells."""
     from skimage.filters import threshold_otsu
 
     pos = spread > 0
     if pos.sum() < 16:
         return ~pos
     floor = float(spread[pos].min())
-    logs = ndi.gaussian_filter(np.log(np.maximum(spread, floor)), 1.0, mode="nearest")
+    logs = np.log(np.maximum(spread, floor))
     if float(logs.max() - logs.min()) < 1e-9:
         return np.zeros(spread.shape, dtype=bool)
     t = threshold_otsu(logs)
     low, high = logs[logs <= t], logs[logs > t]
     if low.size == 0 or high.size == 0 or np.median(high) - np.median(low) < math.log(OUTSIDE_CONTRAST):
         return np.zeros(spread.shape, dtype=bool)
+    # a pixel half on cells waves half as much: the edge is where the spread falls to ~1/3 of the cells'
+    t = max(t, float(np.median(high)) - math.log(3.0))
     out = _remove_small(logs <= t, min_px)
-    # holes of cells smaller than an outside region inside it are outside too, and vice versa
+    # islands and holes smaller than an outside region: the grain of the cells, a weak spot
     out = ~_remove_small(~out, min_px)
     return out
 
