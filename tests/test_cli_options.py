@@ -273,9 +273,14 @@ def test_register_puts_a_drifted_core_back_where_it_is(tmp_path):
     # 20 um grid), tolerance 10 um, half a grid pixel
     assert worst_core_offset(tmp_path / "reg") < 10.0
     assert math.hypot(core["x_um"] - 655.0, core["y_um"] - 635.0) < 10.0  # achieved 0 um
-    # the same stack without registration: the core follows the drift (achieved 57 um)
-    _analyse(path, tmp_path / "noreg")
+    # the same stack with registration forbidden: the core follows the drift (achieved 57 um)
+    s = _analyse(path, tmp_path / "noreg", "--no-register")
+    assert s["drift"]["corrected"] is False and any("drift" in w for w in s["warnings"])
     assert worst_core_offset(tmp_path / "noreg") > 40.0
+    # by default the drift (7.2 px, well over a quarter pixel) is measured and corrected
+    s = _analyse(path, tmp_path / "auto")
+    assert s["drift"]["corrected"] is True
+    assert worst_core_offset(tmp_path / "auto") < 10.0
 
 
 # --------------------------------------------------------------------------- --memory-mb

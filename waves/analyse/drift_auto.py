@@ -17,6 +17,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.fft as sfft
 import scipy.ndimage as ndi
 
 from waves import preprocess
@@ -87,28 +88,46 @@ def _vertex(cm: float, c0: float, cp: float) -> float:
 
 
 class _Matcher:
+    """Cross-correlation with a fixed reference.  A frame's high-pass is done
+    in the Fourier domain on the windowed frame (the transfer function of
+    `_texture`'s Gaussian high-pass), so a frame costs one forward and one
+    inverse real FFT."""
+
     def __init__(self, reference_tex: np.ndarray, max_shift: int):
         ny, nx = reference_tex.shape
         self.win = np.outer(np.hanning(ny), np.hanning(nx)).astype(np.float32)
         ref = reference_tex * self.win
         self.ref_norm = float(np.sqrt(np.sum(ref.astype(np.float64) ** 2)))
-        self.ref_conj = np.conj(np.fft.rfft2(ref))
+        self.ref_conj = np.conj(sfft.rfft2(ref))
+        fy = np.fft.fftfreq(ny)[:, None]
+        fx = np.fft.rfftfreq(nx)[None, :]
+        self.highpass = (1.0 - np.exp(-2.0 * (np.pi * TEXTURE_SIGMA_PX) ** 2 * (fy**2 + fx**2))).astype(np.float32)
+        # rfft2 holds the columns 1 .. (nx - 1) // 2 once for two (Parseval)
+        self.weight = np.full(self.highpass.shape[1], 2.0)
+        self.weight[0] = 1.0
+        if nx % 2 == 0:
+            self.weight[-1] = 1.0
         self.shape = (ny, nx)
         self.max_shift = max_shift
+        m = max_shift
+        self.rows = np.arange(-m, m + 1) % ny
+        self.cols = np.arange(-m, m + 1) % nx
 
-    def __call__(self, tex: np.ndarray) -> tuple[np.ndarray, float]:
+    def __call__(self, frame: np.ndarray, *, highpass: bool = True) -> tuple[np.ndarray, float]:
         ny, nx = self.shape
-        f = tex * self.win
-        cc = np.fft.irfft2(self.ref_conj * np.fft.rfft2(f), s=self.shape)
+        spec = sfft.rfft2(frame * self.win)
+        if highpass:
+            spec *= self.highpass
+        cc = sfft.irfft2(self.ref_conj * spec, s=self.shape)
         m = self.max_shift
-        # only shifts within +-max_shift (wrapped indices)
-        sub = np.roll(np.roll(cc, m, axis=0), m, axis=1)[: 2 * m + 1, : 2 * m + 1]
+        sub = cc[np.ix_(self.rows, self.cols)]  # only shifts within +-max_shift
         i, j = np.unravel_index(int(np.argmax(sub)), sub.shape)
-        i0, j0 = (i - m) % ny, (j - m) % nx
+        i0, j0 = int(self.rows[i]), int(self.cols[j])
         c0 = cc[i0, j0]
         dy = _vertex(cc[(i0 - 1) % ny, j0], c0, cc[(i0 + 1) % ny, j0])
         dx = _vertex(cc[i0, (j0 - 1) % nx], c0, cc[i0, (j0 + 1) % nx])
-        norm = self.ref_norm * float(np.sqrt(np.sum(f.astype(np.float64) ** 2)))
+        f_norm = float(np.sqrt(np.sum((np.abs(spec) ** 2).astype(np.float64) * self.weight) / (ny * nx)))
+        norm = self.ref_norm * f_norm
         match = float(c0 / norm) if norm > 0 else 0.0
         return np.array([i - m + dy, j - m + dx]), match
 
@@ -126,7 +145,7 @@ def estimate_coarse_drift(data, *, block: int = 32) -> DriftEstimate:
     # the sample frames are put on the first one's position before the median,
     # so a large drift does not blur the reference
     first = _Matcher(sample[0], max_shift)
-    back = np.stack([ndi.shift(s, -first(s)[0], order=1, mode="nearest") for s in sample])
+    back = np.stack([ndi.shift(s, -first(s, highpass=False)[0], order=1, mode="nearest") for s in sample])
     power = float(np.mean(np.sum(sample.astype(np.float64) ** 2, axis=(1, 2))))
     static = float(np.sum(np.median(sample, axis=0).astype(np.float64) ** 2)) / power if power > 0 else 0.0
     match = _Matcher(np.median(back, axis=0), max_shift)
@@ -137,7 +156,7 @@ def estimate_coarse_drift(data, *, block: int = 32) -> DriftEstimate:
         if not np.isfinite(frames).all():
             return DriftEstimate(np.zeros((nt, 2)), np.zeros(nt), False, static, (), eb)
         for k, f in enumerate(frames):
-            shifts[t0 + k], score[t0 + k] = match(_texture(f))
+            shifts[t0 + k], score[t0 + k] = match(f)
     shifts = (shifts - shifts[0]) * eb
     step = float(np.median(np.hypot(*np.diff(shifts, axis=0).T))) if nt > 1 else 0.0
     reliable = bool(np.median(score) >= MIN_MATCH and static >= MIN_STATIC and step <= MAX_MEDIAN_STEP_PX)
