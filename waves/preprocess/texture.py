@@ -346,7 +346,10 @@ def correct_streaming(read, write, shape_tyx: tuple[int, int, int], *,
     nt, ny, nx = (int(v) for v in shape_tyx)
     dt_min = float(frame_interval_s) / 60.0
     sigma_frames = max(1.0, 0.19 * float(period_band_min[1]) / dt_min)
-    step = max(1, int(math.floor(float(period_band_min[0]) / dt_min / 4.0)))
+    # the window is sampled every `step` frames: the sampled Gaussian's transform repeats at
+    # 1 / step, which must stay clear (3 sd of it) above the band's highest frequency
+    f_hi = dt_min / float(period_band_min[0])
+    step = max(1, int(math.floor(1.0 / (f_hi + 3.0 / (2.0 * math.pi * sigma_frames)))))
     offsets, _ = background_weights(sigma_frames, step)
     block_out = {"method": "texture motion by tile cross-correlation; motion-compensated background subtracted",
                  "cell_motion_um_per_min": None, "moving_tile_fraction": 0.0, "corrected": False,
