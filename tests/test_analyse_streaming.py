@@ -8,6 +8,8 @@ look that picks it on raw frames is not part of this step, and moving texture fo
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 from streaming_fields import PERIOD, SPEED, streaming_recording
@@ -66,6 +68,7 @@ def test_streaming_cells_make_no_cores_and_keep_period_and_speed(kind, seed, spe
     assert tex["cell_motion_um_per_min"] == pytest.approx(speed, rel=0.15)
     assert 0.0 < tex["left_out_fraction"] < 0.5
     assert any("streaming" in n for n in a.summary["analysis"]["notes"])
+    assert json.loads(json.dumps(tex)) == tex  # goes into summary.json as it is
 
 
 # without the step some fields leave no pixel above the amplitude floor, and the summary's
