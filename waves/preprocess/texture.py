@@ -391,7 +391,9 @@ def correct_streaming(read, write, shape_tyx: tuple[int, int, int], *,
     block_out["edge_px_left_out"] = rim
     block_out["left_out_fraction"] = float(left_out.mean())
     note = (f"cells were streaming (texture moving at {speed * to_um_per_min:.1f} um/min, median over the "
-            "field): the moving cell texture was removed before the waves were measured")
+            "field): the moving cell texture was removed before the waves were measured; "
+            f"{100 * float(left_out.mean()):.0f} % of the field, along the frame edges where cells came in "
+            "or the smoothing is cut short, was left out")
     return block_out, note
 
 
