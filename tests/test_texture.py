@@ -143,9 +143,10 @@ def test_moving_background_removal_leaves_the_wave(speed):
         _truth_velocity(rec).astype(np.float32), sigma_frames=0.19 * 20.0 / (DT / 60.0), rim_px=3)
     after = corr(m)
     kept = ~left_out & rec.truth.cell_mask[::FACTOR, ::FACTOR]
-    # achieved: median 0.99 after (0.6-0.8 before); the 10th percentile 0.97
-    assert np.median(after[kept]) > 0.97 and np.percentile(after[kept], 10) > 0.9
-    assert np.median(before[kept]) < 0.9
+    # achieved after: median 0.997 / 0.995, 10th percentile 0.992 / 0.991 (5 / 15 um/min)
+    assert np.median(after[kept]) > 0.98 and np.percentile(after[kept], 10) > 0.95
+    if speed >= 15.0:  # at 5 um/min most grain fluctuation is slower than this band (before: 0.997)
+        assert np.median(before[kept]) < 0.9  # achieved 0.86, 10th percentile 0.73
     assert (m[:, left_out] == 0).all()  # left-out pixels carry no signal
 
 

@@ -17,8 +17,8 @@ from waves import __version__
 from waves.cli_common import (
     add_analysis_options,
     add_calibration_options,
-    add_times_option,
     add_cell_mask_option,
+    add_times_option,
     analysis_options_from_args,
     parse_frames,
     summary_lines,
