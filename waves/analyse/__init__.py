@@ -29,6 +29,12 @@ wavelength and spiral cores, in bounded memory.
    smoothing (a front of radius r looks sigma^2 / (2 r^2) faster), and
    speeds that would need more than a 3 % correction are dropped.
 
+Per-frame times (`times_s`) and frames declared bad (`valid_frames`) put the
+movie on a uniform time grid as it is binned (waves.preprocess.timebase):
+dropped and bad frames are interpolated in time; gaps (>= 3 missing frames),
+a settling margin next to them and bad frames are left out of every
+measurement (waves.analyse.segments); summary['recording'] lists them.
+
 Cores are detected per frame from the collected charges, tracked, and kept
 when they live for at least about one period.  Everything is in analysis-grid
 pixels and frames until the end, where the calibration turns it into um (in
