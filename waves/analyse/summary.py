@@ -122,6 +122,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         cores_rows=per["mean_row"],
         cores_cols=per["mean_col"],
         cores_ids=per["track_id"],
+        fill=in_field & ~covered,  # the border a drift correction leaves: nearest territory, not measured
     )
     speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
 

@@ -73,16 +73,21 @@ def track_centres(
     cores_rows: np.ndarray,
     cores_cols: np.ndarray,
     cores_ids: np.ndarray,
+    fill: np.ndarray | None = None,
 ) -> CentreSet:
     """Centres and territories from direction and coherence maps of shape
-    (n_windows + 1, y, x): index 0 the whole movie, then the windows."""
+    (n_windows + 1, y, x): index 0 the whole movie, then the windows.
+    `fill` ((y, x) bool or None): pixels of the field that carry no direction
+    to walk (e.g. the border a drift correction leaves without data), given
+    to the nearest territory."""
     n_all, ny, nx = direction.shape
     nw = n_all - 1
+    extra = np.zeros((ny, nx), dtype=bool) if fill is None else np.asarray(fill, dtype=bool)
 
     def territories(i):
         steady = signal & (coherence[i] >= min_coherence)
         t = find_territories(direction[i], steady, merge_radius_px=merge_radius_px)
-        return t, fill_gaps(t.labels, signal & ~steady)
+        return t, fill_gaps(t.labels, (signal & ~steady) | extra)
 
     found = []  # (window, row, col, n_pixels, local label, filled labels)
     window_maps = []
