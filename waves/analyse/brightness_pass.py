@@ -20,7 +20,8 @@ from waves.preprocess import brightness as pb
 FADE_NOTE_PERCENT = 10.0  # a slow brightness change above this is named in the notes
 
 
-def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: float) -> pb.Brightness | None:
+def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: float,
+             cell_mask: np.ndarray | None = None) -> pb.Brightness | None:
     """Per-frame gain and offset of the binned movie against its temporal mean,
     over the dish (the dark surround would only add noise to the fit); None
     when the mean image has no light (background-subtracted data: a gain
@@ -28,6 +29,8 @@ def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: floa
     if not float(mean_b.max()) > 0:
         return None
     field = preprocess.dish_mask(mean_b)
+    if cell_mask is not None and (field & cell_mask).sum() >= 64:  # the cell field, when one was found
+        field = field & cell_mask
     idx = pb.sample_pixels(field)
     ref = mean_b.ravel()[idx]
     if not float(ref.mean()) > 0:

@@ -120,7 +120,7 @@ def analyse_movie(
         if options.brightness:  # lamp fade and flicker (waves.preprocess.brightness)
             tb = time.perf_counter()
             bright = brightness_pass.estimate(movie, mean_b, block=block,
-                                              slow_frames=options.period_band_min[1] / dt_min)
+                                              slow_frames=options.period_band_min[1] / dt_min, cell_mask=cells.mask)
             timings["brightness_s"] = time.perf_counter() - tb
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
@@ -128,6 +128,11 @@ def analyse_movie(
         if bright is not None:
             brightness_pass.replace_flicker(movie, bright)
             brightness_block = brightness_pass.report(bright, notes=notes, warnings=warnings)
+            if bright.flicker.any():  # interpolated, and left out of every measurement like a dropped frame
+                valid_grid = valid_grid & ~bright.flicker
+                recording["excluded_frames"] = sorted(set(recording.get("excluded_frames") or [])
+                                                      | set(np.flatnonzero(bright.flicker).tolist()))
+                recording["invalid_frames"] = np.flatnonzero(~valid_grid).tolist()
         else:
             brightness_block = {"method": "not estimated: the mean image has no light (background-subtracted "
                                           "data)" if options.brightness else "off (--no-brightness)"}
