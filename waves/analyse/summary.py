@@ -122,7 +122,9 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         cores_rows=per["mean_row"],
         cores_cols=per["mean_col"],
         cores_ids=per["track_id"],
-        fill=in_field & ~covered,  # the border a drift correction leaves: nearest territory, not measured
+        # no data: the border a drift correction leaves, edge pixels the streaming-texture removal
+        # zeroed (amplitude exactly 0); given to the nearest territory, never measured
+        fill=in_field & (~covered | (amp == 0)),
     )
     speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
 
