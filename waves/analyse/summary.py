@@ -10,7 +10,7 @@ import numpy as np
 import scipy.ndimage
 
 from waves import __version__, preprocess
-from waves.analyse.options import DISCLAIMER, HALO_PX, Analysis, AnalysisOptions
+from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
 from waves.analyse.segments import arrivals_by_stretch
 from waves.analyse.strips import _detect_and_track, _Maps
 from waves.measure.centres import emission_intervals, track_centres
@@ -75,7 +75,10 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     # the cell field: nothing measured outside it nor within a margin of its edge (cellfield)
     small = preprocess.small_hole_px(sigma_px)
     holey = np.ones((nyb, nxb), bool) if cells is None else cells.mask
-    measured = preprocess.measurable(holey, margin=margin_px, hole_margin=float(HALO_PX), small_hole_px=small)
+    # small holes (specks, dead pixels) are bridged by the normalised convolution: one pixel for the
+    # gradient stencil around them, not the activation fit's halo (a bright grain taken for a speck
+    # next to a spiral core must not take the core with it)
+    measured = preprocess.measurable(holey, margin=margin_px, hole_margin=1.0, small_hole_px=small)
     in_field = preprocess.fill_small_holes(holey, small)  # the kernel bridges specks: directions and territories do
     walkable = preprocess.measurable(in_field, margin=margin_px)
     if not measured.all():

@@ -55,6 +55,7 @@ __all__ = [
 SATURATED_FRACTION = 0.5  # a pixel at full scale in at least half the frames carries no signal
 OUTSIDE_CONTRAST = 3.0  # cells' temporal spread over the empty region's, at least (else: no empty region)
 SPECK_RADIUS_UM = 60.0  # the largest static speck looked for (radius)
+SPECK_GROW_RATIO = 1.3  # a speck's rim, grown from its core, is still this much brighter than around
 SPECK_LEVEL_RATIO = 2.0  # a speck core is at least this many times brighter than the texture around it
 
 
@@ -133,7 +134,8 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     # for added light (measured: a third of a textured 8-bit field flagged, none above 2.2x)
     median_level = ndi.median_filter(m, size=int(2 * math.ceil(2.0 * float(radius_px)) + 1), mode="nearest")
     strong = ok & (added > 0.4 * level) & waving & ~near_quiet & (m > SPECK_LEVEL_RATIO * median_level)
-    weak = ok & (added > 0.15 * level) & waving
+    # the rim of a speck is brighter than the texture too; a spiral's core (little spread, not bright) is not
+    weak = ok & (added > 0.15 * level) & waving & (m > SPECK_GROW_RATIO * median_level)
     labels, n = ndi.label(strong, structure=np.ones((3, 3), bool))
     if n == 0:
         return np.zeros(m.shape, dtype=bool)
