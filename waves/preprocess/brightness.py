@@ -60,6 +60,16 @@ FLICKER_Z = 8.0
 # several and are left in (a very clean movie has a tiny MAD; without this
 # floor a 0.3 % wobble would be called flicker).
 FLICKER_MIN_JUMP = 0.01
+# The slow trend divided out: a quadratic in time of log(gain) over the whole
+# movie (a lamp fades smoothly over hours: linear and exponential laws are
+# followed within 0.2 %), so the field's own slow brightness changes (waves
+# spreading over a field at rest) are not taken for the lamp.  Measured on a
+# simulated relay field that starts at rest: a Gaussian local trend of 0.4 x
+# the band's longest period followed the waves' arrival and moved a
+# pacemaker's period by -0.075 %.  Movies shorter than TREND_MIN_PERIODS of
+# the band's longest period use that local trend.
+TREND_DEGREE = 2
+TREND_MIN_PERIODS = 1.0
 # A frame with less than this fraction of the median gain is blank (flagged as flicker).
 BLANK_GAIN = 0.05
 # Regression pixels: at most this many, spread evenly over the cell field.
@@ -165,6 +175,14 @@ def frame_brightness(samples, reference_samples, *, with_offset: bool = True) ->
     return gain, off * level
 
 
+def _poly_trend(y: np.ndarray, good: np.ndarray, degree: int) -> np.ndarray:
+    """Least-squares polynomial of `degree` in time through the good samples of y."""
+    t = np.linspace(-1.0, 1.0, y.size)
+    deg = min(degree, max(0, int(good.sum()) - 1))
+    coef = np.polynomial.polynomial.polyfit(t[good], y[good], deg)
+    return np.polynomial.polynomial.polyval(t, coef)
+
+
 def _local_linear_1d(y: np.ndarray, weight: np.ndarray, sigma: float) -> np.ndarray:
     """Gaussian-weighted local linear regression of y(t) (weights 0 drop a
     sample), evaluated at every t: a smooth trend without the end bias of a
@@ -229,17 +247,24 @@ def brightness_correction(gain_raw, offset_raw, *, slow_frames: float) -> Bright
             break
         flicker = new
     good = ~flicker
-    trend = _local_linear_1d(logg, good.astype(np.float64), sigma)
-    gain_slow = np.exp(trend)
-    offset_slow = _local_linear_1d(o, good.astype(np.float64), sigma)
+    poly = n / slow_frames >= TREND_MIN_PERIODS
+    if poly:  # a long movie: the lamp's trend is a polynomial of the whole movie
+        gain_slow = np.exp(_poly_trend(logg, good, TREND_DEGREE))
+        offset_slow = _poly_trend(o, good, TREND_DEGREE)
+    else:
+        gain_slow = np.exp(_local_linear_1d(logg, good.astype(np.float64), sigma))
+        offset_slow = _local_linear_1d(o, good.astype(np.float64), sigma)
     level = float(np.mean(gain_slow[good]))
     gain = np.where(flicker, g, gain_slow) / level
     offset = np.where(flicker, o, offset_slow)
     return Brightness(
         gain_raw=g / level, offset_raw=o, gain=gain, offset=offset, flicker=flicker, z=z,
-        method=(f"per-frame gain and offset: Huber regression of each frame on the temporal mean over the "
-                f"cell field; slow trend: Gaussian local linear fit in time (sigma {sigma:.1f} frames); "
-                f"flicker: |robust z| > {FLICKER_Z:g} and jump > {100 * FLICKER_MIN_JUMP:g} %"),
+        method=("per-frame gain and offset: Huber regression of each frame on the temporal mean over the "
+                "cell field; slow trend: "
+                + ("quadratic in time of log(gain) over the movie" if poly else
+                   f"Gaussian local linear fit in time (sigma {sigma:.1f} frames)")
+                + f"; flicker: |robust z| > {FLICKER_Z:g} against the neighbours' prediction and jump > "
+                f"{100 * FLICKER_MIN_JUMP:g} %"),
     )
 
 
