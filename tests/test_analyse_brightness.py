@@ -97,12 +97,15 @@ def test_fading_lamp_fails_with_the_old_cleaning(kind, monkeypatch):
     assert not _on_target(a, kind)
 
 
-def test_detrend_alone_removes_a_fade_left_in():
-    # brightness correction off, the per-pixel quadratic detrend on: a smooth 40 % fade is
-    # removed before the FFT (measured period +0.02 %, speed 0.0 %; without it -4.8 %, +21 %)
+@pytest.mark.parametrize("degree", [2, None])
+def test_detrend_alone_removes_a_fade_left_in(degree, monkeypatch):
+    # brightness correction off, the per-pixel quadratic detrend on (off by default, see
+    # waves.analyse.options.DETREND_DEGREE): a smooth 40 % fade is removed before the FFT
+    # (measured period +0.02 %, speed 0.0 %; without it -4.8 %, +21 %: must fail)
+    monkeypatch.setattr(analyse_strips, "DETREND_DEGREE", degree)
     rec = _rec("target", 1, lamp_fade=0.4)
     a = analyse_movie(rec.data, calibration=rec.calibration, options=AnalysisOptions(brightness=False))
-    assert _on_target(a, "target")
+    assert _on_target(a, "target") == (degree is not None)
     assert a.summary["brightness"]["method"].startswith("off")
 
 

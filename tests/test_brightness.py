@@ -72,7 +72,7 @@ def test_no_false_flicker_on_noisy_movies(kind, seed, fade):
     rec = _rec(kind, seed, lamp_fade=fade)
     b = estimate_brightness(rec.data, slow_frames=SLOW)
     assert b.flicker_frames == [] == list(rec.truth.flicker_frames)
-    # the largest steady-frame score stays far below the threshold (measured |z| <= 3.4)
+    # the largest steady-frame score stays far below the threshold (measured |z| <= 3.6)
     assert np.abs(b.z).max() < 5.0
 
 

@@ -13,12 +13,15 @@ DEFAULT_PERIOD_BAND_MIN = (2.0, 20.0)
 HALO_PX = 3  # gradient (1) + activation-fit radius (2)
 FIT_RADIUS_PX = 2
 MAX_SMOOTHING_CORRECTION = 0.03  # larger curvature corrections of a speed are not trusted: the speed is dropped
-# Before the FFT band-pass each pixel loses its least-squares quadratic (a slow trend: under one
-# cycle over the movie, far below the band), so a fade left after the brightness correction (or
-# with it off) is no sawtooth at the transform's wrap-around.  Measured (target and spiral, 128
+# Before the FFT band-pass each pixel may lose its least-squares polynomial of this degree (a slow
+# trend: under one cycle over the movie, far below the band), so a fade left after the brightness
+# correction is no sawtooth at the transform's wrap-around.  Measured (target and spiral, 128
 # frames, 40 % linear fade, brightness correction off): period -4.8 % / -5.2 %, speed +21 % without
-# the detrend; +0.02 % / +0.01 %, 0.0 % / -1.5 % with it (clean field unchanged: +-0.02 %).
-DETREND_DEGREE = 2
+# the detrend; +0.02 % / +0.01 %, 0.0 % / -1.5 % with degree 2 (clean field unchanged: +-0.02 %).
+# Off (None) by default: on a simulated relay field that starts at rest it moved a pacemaker's
+# own period by -0.08 % (7.9926 min against 7.9992 without, stimulus 8 min), beyond that test's
+# 0.05 %; with the per-frame brightness correction on, the fade is gone before the FFT anyway.
+DETREND_DEGREE: int | None = None
 # Mirror padding (periods each end) before the FFT, analytic_signal(pad_frames=...).  Off: on the
 # same movies one period of mirrored frames biased the clean-field period by -0.15 % and the speed by
 # -0.5 % (the reflection folds the phase, and the narrow band's ringing reaches past the trimmed
