@@ -70,14 +70,18 @@ def analyse_movie(
     else:
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
     nyb, nxb = ny // factor, nx // factor
+    t_field = time.perf_counter()
     fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um)
+    timings["cell_field_s"] = time.perf_counter() - t_field
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, weight=fplan.weight,
                            coverage=fplan.coverage, stats=fplan.stats)
+        t_field = time.perf_counter()
         cells = cell_field.find(fplan, mean_b, pixel_size_um=px_um,
                                 wavelength_px=lam / factor if lam is not None else None)
+        timings["cell_field_s"] += time.perf_counter() - t_field  # scan and mask; the statistics ride the binning
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, field_mask=cells.mask)
         bar.close()
