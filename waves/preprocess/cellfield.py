@@ -99,7 +99,8 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     added light is estimated as level - spread / k_local (k_local the ratio
     of Gaussian-smoothed spread and level, sigma 2 `radius_px`, over pixels
     whose spread / level is at least half the median); pixels where
-    it exceeds 40 % of the local level, and whose spread is at least 0.3
+    it exceeds 40 % of the local level, which are 30 % brighter than it (a
+    spiral's core has little spread too, but no extra light), and whose spread is at least 0.3
     times that of the cells around (the cells under a speck still wave, an
     empty surround does not), make a speck's core; cores larger
     than a disk of `radius_px` or longer than its diameter are not specks (a
@@ -127,7 +128,8 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     waving = sd > 0.3 * g(sd * w) / np.maximum(g(w), 1e-12)
     # not within 3 pixels of the empty surround: a rim lies along the dish edge
     near_quiet = ndi.binary_dilation(ok & ~waving, structure=np.ones((3, 3), bool), iterations=3)
-    strong = ok & (added > 0.4 * level) & waving & ~near_quiet
+    # and brighter than the cells around: a spiral's core also has little spread, but no extra light
+    strong = ok & (added > 0.4 * level) & (m > 1.3 * level) & waving & ~near_quiet
     weak = ok & (added > 0.15 * level) & waving
     labels, n = ndi.label(strong, structure=np.ones((3, 3), bool))
     if n == 0:
