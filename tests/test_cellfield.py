@@ -173,3 +173,22 @@ def test_user_mask_errors():
     with pytest.raises(InputError, match="all zero"):
         preprocess.user_cell_mask(np.zeros((4, 4)), (4, 4))
     assert preprocess.user_cell_mask(np.array([[0, 2], [0, 1]]), (2, 2)).tolist() == [[False, True], [False, True]]
+
+
+def test_a_spiral_core_is_not_a_speck():
+    # regression: a spiral's core waves little but adds no light; it was taken for a
+    # speck and cut out, and the core was lost (Barkley spiral prediction).  Constructed
+    # truth: a field of spread 10 on level 100, a disk of spread 1 at the same level (a
+    # core) and one at level 250 (a speck: 150 of light added on top of waving cells).
+    rng = np.random.default_rng(3)
+    mean = 100.0 + rng.normal(0, 2, (80, 80))
+    std = 10.0 + rng.normal(0, 0.5, (80, 80))
+    yy, xx = np.mgrid[0:80, 0:80]
+    core = np.hypot(yy - 25, xx - 25) < 3
+    speck = np.hypot(yy - 55, xx - 55) < 3
+    std[core] = 1.0
+    mean[speck] += 150.0
+    found = preprocess.find_specks(mean, std, radius_px=6.0)
+    assert not found[core].any()
+    assert found[speck].all()
+    assert not found[~ndi.binary_dilation(speck, iterations=3)].any()

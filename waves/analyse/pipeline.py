@@ -100,6 +100,7 @@ def analyse_movie(
     else:
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
     nyb, nxb = ny // factor, nx // factor
+    t_field = time.perf_counter()
     fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um)
     drift = drift_auto.on_grid(drift_plan, factor=factor, shape_b=(nyb, nxb), frame_interval_min=dt_min,
                                sigma_px=sigma_px)
@@ -109,19 +110,22 @@ def analyse_movie(
     if shifts_b is not None and tb is not None:  # per recorded frame -> per frame of the time grid
         grid = np.arange(tb.n_grid, dtype=np.float64)
         shifts_b = np.stack([np.interp(grid, tb.slot, shifts_b[:, k]) for k in range(2)], axis=1)
+    timings["cell_field_s"] = time.perf_counter() - t_field
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, resampler=resampler,
                            weight=fplan.weight, coverage=fplan.coverage, stats=fplan.stats)
+        t_field = time.perf_counter()
         cells = cell_field.find(fplan, mean_b, pixel_size_um=px_um,
                                 wavelength_px=lam / factor if lam is not None else None)
+        timings["cell_field_s"] += time.perf_counter() - t_field  # scan and mask; the statistics ride the binning
         bright = None
         if options.brightness:  # lamp fade and flicker (waves.preprocess.brightness)
-            tb = time.perf_counter()
+            t_bright = time.perf_counter()
             bright = brightness_pass.estimate(movie, mean_b, block=block,
                                               slow_frames=options.period_band_min[1] / dt_min, cell_mask=cells.mask)
-            timings["brightness_s"] = time.perf_counter() - tb
+            timings["brightness_s"] = time.perf_counter() - t_bright
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
                shifts=shifts_b)

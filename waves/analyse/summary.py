@@ -92,8 +92,9 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     wl_guess = float(np.nanmedian(maps.speed[0] * maps.period[0]))
     hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
     filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole) & in_field & covered
-    tracks = _detect_and_track(maps.charges, signal=plaquettes_inside(filled & measured), n_frames=usable, period_frames=period0,
-                               frame_ok=frame_ok)
+    # cores are found where directions are (small holes bridged), not within the edge's margin
+    tracks = _detect_and_track(maps.charges, signal=plaquettes_inside(filled & walkable), n_frames=usable,
+                               period_frames=period0, frame_ok=frame_ok)
     persistent = tracking.persistent_tracks(
         tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
     )

@@ -101,7 +101,8 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     added light is estimated as level - spread / k_local (k_local the ratio
     of Gaussian-smoothed spread and level, sigma 2 `radius_px`, over pixels
     whose spread / level is at least half the median); pixels where
-    it exceeds 40 % of the local level, and whose spread is at least 0.3
+    it exceeds 40 % of the local level, which are 30 % brighter than it (a
+    spiral's core has little spread too, but no extra light), and whose spread is at least 0.3
     times that of the cells around (the cells under a speck still wave, an
     empty surround does not), make a speck's core; cores larger
     than a disk of `radius_px` or longer than its diameter are not specks (a
