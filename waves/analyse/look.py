@@ -32,6 +32,8 @@ def _prominent_peak(radial: np.ndarray, lo: int, hi: int) -> int | None:
     seg = radial[lo:hi]
     floor = 4.0 * float(np.median(seg))
     peaks = lo + 1 + np.flatnonzero((seg[1:-1] >= seg[:-2]) & (seg[1:-1] >= seg[2:]))
+    if seg.size > 1 and seg[0] >= seg[1]:  # a wavelength of half the field sits on the range's first bin
+        peaks = np.r_[lo, peaks]
     best, k_best = 0.0, None
     for k in peaks:
         if radial[k] < floor:
