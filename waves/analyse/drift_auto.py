@@ -46,6 +46,10 @@ MIN_STATIC = 0.1
 # stays below this (recorded px).  An estimate locked onto moving bands steps by
 # the front's advance per frame (3.3 px for 100 um/min, 20 s, 10 um pixels).
 MAX_MEDIAN_STEP_PX = 0.3
+# A stage moves the field as one piece: a quadrant's shift may differ from the
+# whole frame's by this much (estimation px) or this fraction of the shift.
+RIGID_TOLERANCE_PX = 1.0
+RIGID_FRACTION = 0.25
 TEXTURE_SIGMA_PX = 3.0  # high-pass scale on the estimation grid: well above the grain, well below a wavelength
 REFERENCE_FRAMES = 31
 ESTIMATE_MAX_SIDE_PX = 256
@@ -157,10 +161,34 @@ def estimate_coarse_drift(data, *, block: int = 32) -> DriftEstimate:
             return DriftEstimate(np.zeros((nt, 2)), np.zeros(nt), False, static, (), eb)
         for k, f in enumerate(frames):
             shifts[t0 + k], score[t0 + k] = match(f)
+    rigid = _rigid(data, np.median(back, axis=0), idx[[len(idx) // 2, -1]], eb, match)
     shifts = (shifts - shifts[0]) * eb
     step = float(np.median(np.hypot(*np.diff(shifts, axis=0).T))) if nt > 1 else 0.0
-    reliable = bool(np.median(score) >= MIN_MATCH and static >= MIN_STATIC and step <= MAX_MEDIAN_STEP_PX)
+    reliable = bool(np.median(score) >= MIN_MATCH and static >= MIN_STATIC and step <= MAX_MEDIAN_STEP_PX
+                    and rigid)
     return DriftEstimate(shifts, score, reliable, static, _jumps(shifts) if reliable else (), eb)
+
+
+def _rigid(data, reference: np.ndarray, frames, eb: int, whole: _Matcher) -> bool:
+    """Whether the field moves as one piece: each quadrant of `frames` shifts
+    as the whole frame does, within max(RIGID_TOLERANCE_PX, RIGID_FRACTION of
+    the shift) on the estimation grid.  A stage moves the whole field; cells
+    streaming toward a centre move its quadrants different ways, and the
+    whole-frame match then follows the texture's net flow (measured: 25 px of
+    "drift" from cells streaming at 5 um/min toward a centre in the field)."""
+    ny, nx = reference.shape
+    if min(ny, nx) < 32:
+        return True
+    halves = [(slice(0, ny // 2), slice(0, nx // 2)), (slice(0, ny // 2), slice(nx // 2, nx)),
+              (slice(ny // 2, ny), slice(0, nx // 2)), (slice(ny // 2, ny), slice(nx // 2, nx))]
+    quads = [_Matcher(reference[q], max(2, min(ny, nx) // 8)) for q in halves]
+    for f in _frames(data, np.asarray(frames), eb):
+        g, _ = whole(f)
+        for q, m in zip(halves, quads, strict=True):
+            d = float(np.hypot(*(m(f[q])[0] - g)))
+            if d > max(RIGID_TOLERANCE_PX, RIGID_FRACTION * float(np.hypot(*g))):
+                return False
+    return True
 
 
 def _jumps(shifts: np.ndarray) -> tuple[tuple[int, float], ...]:
@@ -192,7 +220,7 @@ def decide(est: DriftEstimate, *, factor: int, mode: str) -> tuple[bool, str]:
     if mode == "on":
         return True, f"corrected: switched on (--register); {size}"
     if not est.reliable:
-        return False, ("not corrected: too little static texture to measure drift "
+        return False, ("not corrected: too little static texture to measure drift, or a field that does not move as one piece "
                        f"(median match {float(np.median(est.match)):.2f}, minimum {MIN_MATCH}; static "
                        f"fraction {est.static_fraction:.2f}, minimum {MIN_STATIC}; or the estimate moved "
                        f"like the waves, more than {MAX_MEDIAN_STEP_PX} px per frame)")
