@@ -221,3 +221,36 @@ def emission_intervals(
         emitted[k] = np.mean(first > 0) >= min_outward
     both = emitted[1:] & emitted[:-1]
     return np.diff(at)[both]
+
+
+def without_centres(cs: CentreSet, drop: np.ndarray) -> CentreSet:
+    """`cs` without the centres where `drop` (bool per centre) is True: their
+    territories go to the nearest remaining territory (whole movie and every
+    window), the remaining centres are numbered 1.. in their old order."""
+    drop = np.asarray(drop, dtype=bool)
+    if not drop.any():
+        return cs
+    c = cs.centres
+    keep = ~drop
+    new_id = np.zeros(len(drop) + 1, dtype=np.int64)
+    new_id[1:][keep] = np.arange(1, int(keep.sum()) + 1)
+
+    def remap(lab: np.ndarray) -> np.ndarray:
+        out = new_id[lab]
+        return fill_gaps(out, (lab > 0) & (out == 0))
+
+    labels = remap(cs.labels)
+    window_labels = np.stack([remap(w) for w in cs.window_labels]) if len(cs.window_labels) else cs.window_labels
+    centres = {k: np.asarray(v)[keep] for k, v in c.items()}
+    centres["id"] = np.arange(1, int(keep.sum()) + 1, dtype=np.int64)
+    centres["n_pixels"] = np.asarray([int(np.sum(labels == i)) for i in centres["id"]], dtype=np.int64)
+    areas = {"window": [], "centre_id": [], "n_pixels": []}
+    for w in range(len(window_labels)):
+        for i in centres["id"]:
+            n = int(np.sum(window_labels[w] == i))
+            if n:
+                areas["window"].append(w)
+                areas["centre_id"].append(int(i))
+                areas["n_pixels"].append(n)
+    window_areas = {k: np.asarray(v, dtype=np.int64) for k, v in areas.items()}
+    return CentreSet(centres=centres, labels=labels, window_areas=window_areas, window_labels=window_labels)
