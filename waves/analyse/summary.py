@@ -13,7 +13,7 @@ from waves import __version__, preprocess
 from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
 from waves.analyse.segments import arrivals_by_stretch
 from waves.analyse.strips import _detect_and_track, _Maps
-from waves.measure.centres import emission_intervals, track_centres, without_centres
+from waves.measure.centres import emission_intervals, track_centres
 from waves.measure.period import quartiles
 from waves.measure.speed import (
     kernel_in_one_territory,
@@ -130,16 +130,6 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         # zeroed (amplitude exactly 0); given to the nearest territory, never measured
         fill=in_field & (~covered | (amp == 0)),
     )
-    if not holey.all() and len(cs.centres["id"]):
-        # a target centre inside the margin of the cell field's edge cannot be told from waves
-        # bending round the edge (an empty strip, the dish edge): not reported, its
-        # territory goes to its neighbours (measured: a 0.06 mm2 "target" 126 um from a
-        # cleared strip, inside the 135 um margin)
-        rc = np.clip(np.rint(cs.centres["row"]).astype(int), 0, nyb - 1)
-        cc_ = np.clip(np.rint(cs.centres["col"]).astype(int), 0, nxb - 1)
-        near_edge = scipy.ndimage.distance_transform_edt(holey)[rc, cc_] <= max(margin_px, 1.0) + merge_px
-        small = cs.centres["n_pixels"] < np.pi * (0.5 * wl_px) ** 2 if np.isfinite(wl_px) else False
-        cs = without_centres(cs, (cs.centres["kind"] == "target") & near_edge & small)
     speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
 
     to_um_per_min = px_b / dt_min

@@ -56,7 +56,8 @@ SATURATED_FRACTION = 0.5  # a pixel at full scale in at least half the frames ca
 OUTSIDE_CONTRAST = 3.0  # cells' temporal spread over the empty region's, at least (else: no empty region)
 SPECK_RADIUS_UM = 60.0  # the largest static speck looked for (radius)
 SPECK_GROW_RATIO = 1.3  # a speck's rim, grown from its core, is still this much brighter than around
-SPECK_LEVEL_RATIO = 2.0  # a speck core is at least this many times brighter than the texture around it
+SPECK_LEVEL_RATIO = 1.3  # a speck core is at least this many times brighter than the cells around it
+SPECK_GRAIN_SDS = 5.0  # ... and this many relative sds of the cell texture's level above it
 
 
 # --------------------------------------------------------------------------- bad camera pixels
@@ -134,7 +135,14 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     # bright texture grains grow more slowly than their level, which the spread model alone takes
     # for added light (measured: a third of a textured 8-bit field flagged, none above 2.2x)
     median_level = ndi.median_filter(m, size=int(2 * math.ceil(2.0 * float(radius_px)) + 1), mode="nearest")
-    strong = ok & (added > 0.4 * level) & waving & ~near_quiet & (m > SPECK_LEVEL_RATIO * median_level)
+    # how grainy the cells are (robust relative sd of the level about its local median): a speck
+    # must stand above the texture's own bright grains, which reach 1 + ~5 sd (measured: none
+    # above 2.2x at a relative sd of 0.3, thousands of pixels above 2x at 0.4)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rel_level = np.where(median_level > 0, m / median_level - 1.0, 0.0)[ok]
+    grain = 1.4826 * float(np.median(np.abs(rel_level - np.median(rel_level)))) if rel_level.size else 0.0
+    ratio = max(SPECK_LEVEL_RATIO, 1.0 + SPECK_GRAIN_SDS * grain)
+    strong = ok & (added > 0.4 * level) & waving & ~near_quiet & (m > ratio * median_level)
     # the rim of a speck is brighter than the texture too; a spiral's core (little spread, not bright) is not
     weak = ok & (added > 0.15 * level) & waving & (m > SPECK_GROW_RATIO * median_level)
     labels, n = ndi.label(strong, structure=np.ones((3, 3), bool))
