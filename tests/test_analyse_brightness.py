@@ -131,9 +131,11 @@ ILLUMINATION = {
 def test_2d_illumination_keeps_signal_spiral_period_and_speed(name, seed, flatten):
     rec = _rec("spiral", seed, **ILLUMINATION[name])
     a = analyse_movie(rec.data, calibration=rec.calibration, options=AnalysisOptions(flatten=flatten))
-    # signal over most of the cell field (here the whole frame; measured 99.4-100 %); measured
-    # period within 0.05 %, speed within 0.5 %, one core
-    assert a.summary["analysis"]["signal_fraction"] > 0.9
+    # signal over most of the cell field (here the whole frame; measured 99.4-100 % before the
+    # cell field left saturated camera pixels out): 90 % of what is not at full scale, plus the
+    # measuring margin the cell field keeps around saturated patches (synthetic truth:
+    # rec.truth.saturated_fraction); measured period within 0.05 %, speed within 0.5 %, one core
+    assert a.summary["analysis"]["signal_fraction"] > 0.9 * (1.0 - 2.0 * rec.truth.saturated_fraction)
     assert _on_target(a, "spiral")
 
 

@@ -374,7 +374,10 @@ def find_cell_field(mean_b: np.ndarray, stats: FieldStats, *, coverage: np.ndarr
     """The automatic cell field on the analysis grid (pixel size
     `pixel_size_um`), from the binned temporal mean, the streaming spread
     and the fraction of good recorded pixels per analysis pixel."""
-    spread = stats.slow_spread()
+    # relative to the level: an illumination ramp scales the cells' spread with their light
+    # (a 0.3x corner fell below the outside threshold); empty regions have no slow spread at all
+    level = np.abs(stats.mean())
+    spread = np.where(level > 0, stats.slow_spread() / np.maximum(level, 1e-12), 0.0)
     uncovered = coverage <= 0
     lam = wavelength_px if wavelength_px is not None and np.isfinite(wavelength_px) else 16.0
     min_px = int(max(64, (0.5 * lam) ** 2))
