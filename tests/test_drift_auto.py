@@ -114,7 +114,9 @@ def _covered_only(a):
     assert cov.dtype == bool and not cov.all()  # the drift left a border strip without data
     for name in ("period_min", "front_speed_um_per_min", "wavelength_um", "direction_deg"):
         assert np.isnan(a.maps[name][~cov]).all(), name
-    assert (a.maps["territory_labels"][~cov] == 0).all()
+    # territories are a partition of the cell field: the border strip goes to the nearest
+    # territory (as the truth's territory areas count it), but nothing is measured there
+    assert (a.maps["territory_labels"][~cov] > 0).mean() > 0.9
     grid = a.summary["analysis"]["grid"]
 
     def on_grid(rec):

@@ -13,7 +13,7 @@ from waves import __version__, preprocess
 from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
 from waves.analyse.segments import arrivals_by_stretch
 from waves.analyse.strips import _detect_and_track, _Maps
-from waves.measure.centres import emission_intervals, track_centres
+from waves.measure.centres import emission_intervals, track_centres, without_centres
 from waves.measure.period import quartiles
 from waves.measure.speed import (
     kernel_in_one_territory,
@@ -63,6 +63,30 @@ def _signal_without_empty_holes(amp, filled, options, core_tracks):
         keep[np.unique(window)] = True
     keep[0] = False
     return strict | keep[holes]
+
+
+def _without_hole_echoes(cs, holey, *, margin_px, merge_px, wl_px, min_hole_px):
+    """`cs` without the small target centres next to a hole inside the cell field (an
+    obstacle, a cleared strip): waves bending round the hole's end look like a source
+    there (specks and other holes the smoothing bridges do not count).  Next to: within the measuring margin plus the centres' merge radius; small: a
+    territory under a disc of half a wavelength.  Holes that reach the frame's border (a
+    dish edge) do not count: a real pacemaker by the dish edge keeps its centre (measured:
+    a 0.07-share "target" beside a relay field's obstacle; one by a dish edge is real)."""
+    if holey.all() or not len(cs.centres["id"]) or not np.isfinite(wl_px):
+        return cs
+    lab, n = scipy.ndimage.label(~holey)
+    border = np.unique(np.concatenate([lab[0], lab[-1], lab[:, 0], lab[:, -1]]))
+    sizes = np.bincount(lab.ravel(), minlength=n + 1)
+    # specks and dead pixels (holes the normalised convolution bridges) do not count either
+    inner = (lab > 0) & ~np.isin(lab, border) & (sizes[lab] >= max(int(min_hole_px), 1))
+    if not inner.any():
+        return cs
+    ny, nx = holey.shape
+    r = np.clip(np.rint(cs.centres["row"]).astype(int), 0, ny - 1)
+    c = np.clip(np.rint(cs.centres["col"]).astype(int), 0, nx - 1)
+    near = scipy.ndimage.distance_transform_edt(~inner)[r, c] <= max(margin_px, 1.0) + merge_px
+    small = cs.centres["n_pixels"] < np.pi * (0.5 * wl_px) ** 2
+    return without_centres(cs, (cs.centres["kind"] == "target") & near & small)
 
 
 def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
@@ -130,6 +154,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         # zeroed (amplitude exactly 0); given to the nearest territory, never measured
         fill=in_field & (~covered | (amp == 0)),
     )
+    cs = _without_hole_echoes(cs, holey, margin_px=margin_px, merge_px=merge_px, wl_px=wl_px, min_hole_px=small)
     speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
 
     to_um_per_min = px_b / dt_min
