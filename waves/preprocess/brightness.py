@@ -265,6 +265,14 @@ def brightness_correction(gain_raw, offset_raw, *, slow_frames: float) -> Bright
     flicker = _brief_only(flicker)
     if flicker.mean() > FLICKER_MAX_SHARE:
         flicker = np.zeros_like(flicker)
+    if (blank & ~flicker).any():
+        # frames with no light of their own that are not lone flicker frames: the frame-on-mean
+        # model does not hold (dark simulated fields between waves, additive bands): no correction
+        one = np.ones_like(g)
+        return Brightness(gain_raw=one, offset_raw=np.zeros_like(o), gain=one, offset=np.zeros_like(o),
+                          flicker=np.zeros_like(flicker), z=np.zeros_like(g),
+                          method="not corrected: frames without light of their own in runs or in numbers "
+                                 "(the waves, not the lamp)")
     good = ~flicker
     poly = n / slow_frames >= TREND_MIN_PERIODS
     if poly:  # a long movie: the lamp's trend is a polynomial of the whole movie
