@@ -16,8 +16,6 @@ max(300 um, a quarter wavelength), territories 15 %.
 
 from __future__ import annotations
 
-import dataclasses
-
 import numpy as np
 
 from waves.render import Degradations
@@ -119,6 +117,3 @@ def failures(e: dict) -> list[str]:
 
 def variants():
     return [(c, v) for c in CLASSES for v in range(len(CLASSES[c]))]
-
-
-__all__ = ["CLASSES", "errors", "failures", "recording", "variants", "dataclasses"]
