@@ -126,3 +126,25 @@ def test_subprocess_exit_code_and_no_traceback(tmp_path):
     )
     assert proc.returncode == 2
     assert "Traceback" not in proc.stderr and proc.stderr.startswith("waves: error:")
+
+
+def test_a_command_imports_only_its_own_subsystem():
+    # DESIGN.md: the parser imports a subsystem only when its command runs (a fresh
+    # interpreter, so that no other test's imports count)
+    code = (
+        "import sys\n"
+        "from waves.cli import main\n"
+        "assert main(['analyse', '--help']) == 0\n"
+        "heavy = [m for m in ('waves.simulate', 'waves.simulate_cli', 'waves.screen', 'waves.compare', 'numba', "
+        "'dask') if m in sys.modules]\n"
+        "print('HEAVY:' + ','.join(heavy), file=sys.stderr)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert "--out DIR" in out.stdout
+    assert out.stderr.strip().splitlines()[-1] == "HEAVY:", out.stderr
+    # and every command still builds and answers --help
+    from waves.cli import COMMANDS, main
+
+    for name in COMMANDS:
+        assert main([name, "--help"]) == 0, name
+    assert main(["no-such-command"]) == 2

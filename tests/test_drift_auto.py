@@ -57,6 +57,21 @@ def test_drift_estimate_matches_the_truth_and_finds_the_jump(seed):
     assert size == pytest.approx(float(np.hypot(*(truth[j] - truth[j - 1]))), abs=0.2)
 
 
+@pytest.mark.parametrize("seed", SEEDS)
+def test_sampled_estimate_refines_around_the_jump(seed):
+    # every 5th frame matched, the frames between two that differ by more than a smooth drift
+    # filled in: the same truth (synthetic) and the same 0.2 px as every frame matched
+    rec = _rec("spiral", seed, shape=(96, 128, 128))
+    truth = rec.truth.drift_px
+    est = drift_auto.estimate_coarse_drift(rec.data, stride=5)
+    assert est.reliable
+    assert np.abs(est.shifts_px - truth).max() < 0.2
+    (frame, size), = est.jumps
+    j = rec.truth.drift_jump_frames[0]
+    assert frame == j and j % 5 != 0  # the jump falls between two sampled frames
+    assert size == pytest.approx(float(np.hypot(*(truth[j] - truth[j - 1]))), abs=0.2)
+
+
 def test_still_field_estimates_no_drift_and_no_jump():
     rec = _rec("spiral", 0, drift=False, shape=(96, 128, 128))
     est = drift_auto.estimate_coarse_drift(rec.data)

@@ -45,7 +45,72 @@ def _add_selection_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--zslice", type=int, metavar="Z", help="z-slice of a hyperstack to use")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def _build_info(p: argparse.ArgumentParser) -> None:
+    p.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
+    add_calibration_options(p)
+    add_times_option(p)
+    _add_selection_options(p)
+    p.set_defaults(func=_cmd_info)
+
+
+def _build_analyse(p: argparse.ArgumentParser) -> None:
+    from waves.report import command as _report_cmd
+
+    p.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for the results")
+    add_calibration_options(p)
+    add_times_option(p)
+    _add_selection_options(p)
+    add_analysis_options(p)
+    add_cell_mask_option(p)
+    p.add_argument("--quiet", action="store_true", help="no progress bars")
+    p.add_argument("--no-report", action="store_true", help="do not write report.html (figures, movie)")
+    _report_cmd.add_report_options(p)
+    p.set_defaults(func=_cmd_analyse)
+
+
+def _build_report(p: argparse.ArgumentParser) -> None:
+    from waves.report import command as _report_cmd
+
+    _report_cmd.add_arguments(p)
+    p.set_defaults(func=_report_cmd.run_from_args)
+
+
+def _build_from(module: str):
+    """A subcommand whose module has add_arguments / run_from_args."""
+
+    def build(p: argparse.ArgumentParser) -> None:
+        import importlib
+
+        mod = importlib.import_module(module)
+        mod.add_arguments(p)
+        p.set_defaults(func=mod.run_from_args)
+
+    return build
+
+
+# name -> (one-line help, description or None, builder); a builder imports its subsystem
+COMMANDS = {
+    "info": ("print shape, calibration, duration and memory needs of a stack", None, _build_info),
+    "analyse": (
+        "measure period, front speed, wavelength and spiral cores of a stack",
+        "Analyse a calibrated time-lapse stack; writes summary.json, CSV tables and calibrated TIFF maps into --out.",
+        _build_analyse,
+    ),
+    "report": ("write the HTML report of a results folder", None, _build_report),
+    "demo": ("analyse the bundled sample field and write its HTML report", None, _build_from("waves.demo")),
+    "simulate": ("simulate an excitable medium and write a calibrated movie", None, _build_from("waves.simulate_cli")),
+    "compare": ("fit a model's dispersion relation to analysed stacks and check what it reproduces", None,
+                _build_from("waves.compare")),
+    "screen": ("analyse every stack of a CSV sheet on a dask cluster, resumably, and compare groups", None,
+               _build_from("waves.screen")),
+}
+
+
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The whole parser; with `only` (a command name) only that command's
+    options are built, the others are listed by name and help, so that a
+    command imports its own subsystem and no other."""
     parser = _Parser(
         prog="waves",
         description="Measure and simulate relayed signalling waves in excitable media.",
@@ -55,76 +120,21 @@ def build_parser() -> argparse.ArgumentParser:
         "--debug", action="store_true", help="show the full traceback of any error"
     )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
-
-    p_info = sub.add_parser(
-        "info", help="print shape, calibration, duration and memory needs of a stack"
-    )
-    p_info.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
-    add_calibration_options(p_info)
-    add_times_option(p_info)
-    _add_selection_options(p_info)
-    p_info.set_defaults(func=_cmd_info)
-
-    p_an = sub.add_parser(
-        "analyse",
-        help="measure period, front speed, wavelength and spiral cores of a stack",
-        description="Analyse a calibrated time-lapse stack; writes summary.json, CSV tables "
-        "and calibrated TIFF maps into --out.",
-    )
-    p_an.add_argument("stack", help="TIFF file, folder of TIFF frames, or glob pattern")
-    p_an.add_argument("--out", required=True, metavar="DIR", help="folder for the results")
-    add_calibration_options(p_an)
-    add_times_option(p_an)
-    _add_selection_options(p_an)
-    add_analysis_options(p_an)
-    add_cell_mask_option(p_an)
-    p_an.add_argument("--quiet", action="store_true", help="no progress bars")
-    p_an.add_argument(
-        "--no-report", action="store_true", help="do not write report.html (figures, movie)"
-    )
-    from waves.report import command as _report_cmd
-
-    _report_cmd.add_report_options(p_an)
-    p_an.set_defaults(func=_cmd_analyse)
-
-    p_rep = sub.add_parser("report", help="write the HTML report of a results folder")
-    _report_cmd.add_arguments(p_rep)
-    p_rep.set_defaults(func=_report_cmd.run_from_args)
-
-    from waves import demo as _demo
-
-    p_demo = sub.add_parser(
-        "demo", help="analyse the bundled sample field and write its HTML report"
-    )
-    _demo.add_arguments(p_demo)
-    p_demo.set_defaults(func=_demo.run_from_args)
-
-    from waves import simulate_cli as _simulate
-
-    p_sim = sub.add_parser(
-        "simulate", help="simulate an excitable medium and write a calibrated movie"
-    )
-    _simulate.add_arguments(p_sim)
-    p_sim.set_defaults(func=_simulate.run_from_args)
-
-    from waves import compare as _compare
-
-    p_cmp = sub.add_parser(
-        "compare",
-        help="fit a model's dispersion relation to analysed stacks and check what it reproduces",
-    )
-    _compare.add_arguments(p_cmp)
-    p_cmp.set_defaults(func=_compare.run_from_args)
-
-    from waves import screen as _screen
-
-    p_scr = sub.add_parser(
-        "screen",
-        help="analyse every stack of a CSV sheet on a dask cluster, resumably, and compare groups",
-    )
-    _screen.add_arguments(p_scr)
-    p_scr.set_defaults(func=_screen.run_from_args)
+    for name, (help_, description, builder) in COMMANDS.items():
+        p = sub.add_parser(name, help=help_, description=description)
+        if only is None or only == name:
+            builder(p)
     return parser
+
+
+def _command_of(argv: Sequence[str]) -> str | None:
+    """The subcommand named on the command line (the first word that is not
+    a top-level option), or None (none, or a name that is not a command:
+    argparse then says so)."""
+    for word in argv:
+        if not word.startswith("-"):
+            return word if word in COMMANDS else None
+    return None
 
 
 def _human_bytes(n: float) -> str:
@@ -237,7 +247,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in argv
     try:
-        parser = build_parser()
+        parser = build_parser(_command_of(argv) or "")  # "": no command named, none built
         args = parser.parse_args(argv)
         if getattr(args, "func", None) is None:
             parser.print_help()

@@ -52,6 +52,12 @@ RIGID_TOLERANCE_PX = 1.0
 RIGID_FRACTION = 0.25
 TEXTURE_SIGMA_PX = 3.0  # high-pass scale on the estimation grid: well above the grain, well below a wavelength
 REFERENCE_FRAMES = 31
+# Frames matched to the reference: about this many spread over the movie, plus
+# every frame between two of them whose step departs from the neighbouring
+# steps by more than REFINE_STEP_PX (recorded px; half the smallest jump looked for).  A stage drifts by a few px over hours; between samples
+# a few minutes apart linear interpolation is exact to well below 0.05 px.
+SAMPLED_FRAMES = 120
+REFINE_STEP_PX = 0.5 * JUMP_MIN_PX
 ESTIMATE_MAX_SIDE_PX = 256
 
 
@@ -136,9 +142,20 @@ class _Matcher:
         return np.array([i - m + dy, j - m + dx]), match
 
 
-def estimate_coarse_drift(data, *, block: int = 32) -> DriftEstimate:
-    """Drift of every frame of a (t, y, x) recording, read once in frame blocks
-    (plus a sparse sample for the reference)."""
+def _sample_stride(nt: int) -> int:
+    """Frames between drift estimates: about SAMPLED_FRAMES estimates over the
+    movie (a stage drifts slowly; jumps are found and filled in afterwards)."""
+    return max(1, int(round(nt / SAMPLED_FRAMES)))
+
+
+def estimate_coarse_drift(data, *, block: int = 32, stride: int | None = None) -> DriftEstimate:
+    """Drift of every frame of a (t, y, x) recording.
+
+    Every `stride`-th frame (default `_sample_stride`) is matched to the
+    reference, read in frame blocks; where two neighbouring estimates differ
+    by more than a smooth drift does (`_uneven_steps`), every frame between them is matched too, so that a jump
+    is found at its frame; the other frames take linear interpolation of
+    their neighbours' shifts and match scores."""
     nt, ny, nx = (int(v) for v in data.shape)
     eb = max(1, min(ny, nx) // ESTIMATE_MAX_SIDE_PX)
     idx = np.unique(np.linspace(0, nt - 1, min(nt, REFERENCE_FRAMES)).round().astype(int))
@@ -152,21 +169,55 @@ def estimate_coarse_drift(data, *, block: int = 32) -> DriftEstimate:
     back = np.stack([ndi.shift(s, -first(s, highpass=False)[0], order=1, mode="nearest") for s in sample])
     power = float(np.mean(np.sum(sample.astype(np.float64) ** 2, axis=(1, 2))))
     static = float(np.sum(np.median(sample, axis=0).astype(np.float64) ** 2)) / power if power > 0 else 0.0
-    match = _Matcher(np.median(back, axis=0), max_shift)
-    shifts = np.zeros((nt, 2))
-    score = np.zeros(nt)
-    for t0 in range(0, nt, block):
-        frames = _frames(data, np.arange(t0, min(nt, t0 + block)), eb)
-        if not np.isfinite(frames).all():
+    reference = np.median(back, axis=0)
+    match = _Matcher(reference, max_shift)
+    shifts = np.full((nt, 2), np.nan)
+    score = np.full(nt, np.nan)
+
+    def measure(frames_idx) -> bool:
+        frames_idx = np.asarray(frames_idx, dtype=np.int64)
+        for k0 in range(0, len(frames_idx), block):
+            chunk = frames_idx[k0 : k0 + block]
+            frames = _frames(data, chunk, eb)
+            if not np.isfinite(frames).all():
+                return False
+            for i, f in zip(chunk, frames, strict=True):
+                shifts[i], score[i] = match(f)
+        return True
+
+    step_n = _sample_stride(nt) if stride is None else max(1, int(stride))
+    sampled = np.unique(np.r_[np.arange(0, nt, step_n), nt - 1])
+    if not measure(sampled):
+        return DriftEstimate(np.zeros((nt, 2)), np.zeros(nt), False, static, (), eb)
+    if len(sampled) < nt:
+        rough = _uneven_steps(np.diff(shifts[sampled], axis=0) * eb)
+        inner = [np.arange(sampled[i] + 1, sampled[i + 1]) for i in rough]
+        if inner and not measure(np.concatenate(inner)):
             return DriftEstimate(np.zeros((nt, 2)), np.zeros(nt), False, static, (), eb)
-        for k, f in enumerate(frames):
-            shifts[t0 + k], score[t0 + k] = match(f)
-    rigid = _rigid(data, np.median(back, axis=0), idx[[len(idx) // 2, -1]], eb, match)
+        done = np.flatnonzero(np.isfinite(score))
+        t = np.arange(nt, dtype=np.float64)
+        shifts = np.stack([np.interp(t, done, shifts[done, k]) for k in range(2)], axis=1)
+        score = np.interp(t, done, score[done])
+    rigid = _rigid(data, reference, idx[[len(idx) // 2, -1]], eb, match)
     shifts = (shifts - shifts[0]) * eb
     step = float(np.median(np.hypot(*np.diff(shifts, axis=0).T))) if nt > 1 else 0.0
     reliable = bool(np.median(score) >= MIN_MATCH and static >= MIN_STATIC and step <= MAX_MEDIAN_STEP_PX
                     and rigid)
     return DriftEstimate(shifts, score, reliable, static, _jumps(shifts) if reliable else (), eb)
+
+
+def _uneven_steps(steps: np.ndarray) -> np.ndarray:
+    """Indices of the steps ((n, 2) recorded px between neighbouring sampled
+    frames) that differ from the median of the two steps on each side by more
+    than REFINE_STEP_PX: a smooth drift changes its steps slowly, a jump puts
+    all of itself into one."""
+    out = []
+    for i in range(len(steps)):
+        near = np.concatenate([steps[max(0, i - 2) : i], steps[i + 1 : i + 3]])
+        ref = np.median(near, axis=0) if len(near) else np.zeros(2)
+        if float(np.hypot(*(steps[i] - ref))) > REFINE_STEP_PX:
+            out.append(i)
+    return np.asarray(out, dtype=np.int64)
 
 
 def _rigid(data, reference: np.ndarray, frames, eb: int, whole: _Matcher) -> bool:

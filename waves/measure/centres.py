@@ -7,7 +7,9 @@ field (`waves.measure.territories.find_territories`), then the window
 centres are linked across windows by position (within twice the merge
 radius) into the movie's centres.  The whole movie's territory map comes
 from the direction field averaged over the movie; per-window territory areas
-follow the take-overs.
+follow the take-overs.  A target centre that no window sees (only the
+movie-averaged field, e.g. where a moving collision line averaged out) is
+not reported when there are several windows.
 
 A centre is a spiral when a persistent spiral core lies within twice the
 merge radius of it (the core's position is then the centre's), otherwise a
@@ -168,7 +170,14 @@ def track_centres(
         "n_pixels": np.asarray([int(np.sum(labels == i)) for i in range(1, len(order) + 1)], dtype=np.int64),
     }
     window_areas = {k: np.asarray(v, dtype=np.int64) for k, v in areas.items()}
-    return CentreSet(centres=centres, labels=labels, window_areas=window_areas, window_labels=window_labels)
+    cs = CentreSet(centres=centres, labels=labels, window_areas=window_areas, window_labels=window_labels)
+    if nw > 1:
+        # a pacemaker is a source while it emits, so some time window sees it; a target "centre"
+        # that only the movie-averaged direction field shows is where a moving collision line
+        # averaged out (measured: two such of 0.4-0.5 mm^2 between a 6-min spiral and a
+        # 6.5-min target, whose collision line sweeps as the faster source gains ground)
+        cs = without_centres(cs, (centres["first_window"] < 0) & (centres["kind"] == "target"))
+    return cs
 
 
 def emission_intervals(

@@ -146,7 +146,8 @@ def _huber_lines(x: np.ndarray, y: np.ndarray, *, with_offset: bool, iterations:
     a = np.ones(y.shape[0])
     b = np.zeros(y.shape[0])
     xr = x[None, :]
-    for _ in range(iterations):
+    s = None
+    for it in range(iterations):
         if with_offset:
             sw, sx, sy = w.sum(1), (w * xr).sum(1), (w * y).sum(1)
             sxx, sxy = (w * xr * xr).sum(1), (w * xr * y).sum(1)
@@ -160,8 +161,9 @@ def _huber_lines(x: np.ndarray, y: np.ndarray, *, with_offset: bool, iterations:
             ok = sxx > 0
             a = np.where(ok, (w * xr * y).sum(1) / np.where(ok, sxx, 1.0), a)
         r = y - a[:, None] * xr - b[:, None]
-        s = 1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1)
-        s = np.where(s > 0, s, np.inf)  # an exact fit: keep unit weights
+        if it < 2:  # the scale from the first two fits, then held (the medians are most of the cost)
+            s = 1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1)
+            s = np.where(s > 0, s, np.inf)  # an exact fit: keep unit weights
         u = np.abs(r) / (_HUBER_K * s[:, None])
         w = np.where(u <= 1.0, 1.0, 1.0 / np.maximum(u, 1e-12))
     return a, b

@@ -134,7 +134,7 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     # and at least twice the level of the texture around (median): shot noise makes the spread of
     # bright texture grains grow more slowly than their level, which the spread model alone takes
     # for added light (measured: a third of a textured 8-bit field flagged, none above 2.2x)
-    median_level = ndi.median_filter(m, size=int(2 * math.ceil(2.0 * float(radius_px)) + 1), mode="nearest")
+    median_level = _local_median(m, size=int(2 * math.ceil(2.0 * float(radius_px)) + 1))
     # how grainy the cells are (robust relative sd of the level about its local median): a speck
     # must stand above the texture's own bright grains, which reach 1 + ~5 sd (measured: none
     # above 2.2x at a relative sd of 0.3, thousands of pixels above 2x at 0.4)
@@ -158,6 +158,23 @@ def find_specks(mean: np.ndarray, std: np.ndarray, *, radius_px: float, exclude:
     seeds = keep[labels]
     grown = seeds | (weak & ndi.binary_dilation(seeds, structure=np.ones((3, 3), bool), iterations=2))
     return ndi.binary_dilation(grown, structure=np.ones((3, 3), bool)) & ok
+
+
+def _local_median(image: np.ndarray, *, size: int) -> np.ndarray:
+    """Median over a size x size square about each pixel (within the image at
+    its borders), on the image quantised to 8 bits of 1.5 x its 99.9th
+    percentile: skimage.filters.rank.median keeps a running histogram, ~25x
+    faster than scipy.ndimage.median_filter's sort for a 25-px square, and the
+    quantisation step (~1/170 of the bright texture's level, ~0.5 % of a
+    typical level) is far below the 30 % a speck must stand out by."""
+    from skimage.filters.rank import median as rank_median
+
+    finite = np.isfinite(image)
+    top = 1.5 * float(np.percentile(image[finite], 99.9)) if finite.any() else 0.0
+    if not top > 0:
+        return np.zeros(image.shape, dtype=np.float64)
+    q = np.clip(np.where(finite, image, 0.0) / top * 255.0, 0.0, 255.0).round().astype(np.uint8)
+    return rank_median(q, np.ones((size, size), dtype=bool)).astype(np.float64) * (top / 255.0)
 
 
 def scan_bad_pixels(data, *, n_frames: int = 32, speck_radius_px: float = 6.0) -> BadPixels:
