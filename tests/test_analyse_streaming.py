@@ -52,28 +52,21 @@ def _problems(kind, rec, a) -> list[str]:
     return out
 
 
-# Known misses (3 of 12) since the cell field cuts the cleared strip out of the field: waves bending
-# round the strip's end make an extra small "target" centre there (strict: the marker goes the
-# day they pass; issue 12 notes)
-_STRIP_CENTRE = pytest.mark.xfail(strict=True, reason="extra target centre at the cleared strip's end")
-
-
-def _field_cases():
-    for kind in ("spiral", "target"):
-        for seed in (0, 1, 2):
-            for speed in (5.0, 15.0):
-                known = (kind, seed, speed) in {("spiral", 0, 5.0), ("spiral", 0, 15.0), ("spiral", 1, 15.0)}
-                yield pytest.param(kind, seed, speed, marks=[_STRIP_CENTRE] if known else [],
-                                   id=f"{kind}-{seed}-{speed}")
-
-
-@pytest.mark.parametrize(("kind", "seed", "speed"), list(_field_cases()))
+# Waves bending round the cleared strip (cut out of the cell field, reaching the frame's border)
+# made an extra small "target" centre beside it on 3 of these 12 fields (spiral 0/5, 0/15, 1/15);
+# thin border holes now count as holes for that check (waves.analyse.summary._without_hole_echoes)
+@pytest.mark.parametrize("speed", [5.0, 15.0])
+@pytest.mark.parametrize("seed", [0, 1, 2])
+@pytest.mark.parametrize("kind", ["spiral", "target"])
 def test_streaming_cells_make_no_cores_and_keep_period_and_speed(kind, seed, speed):
     rec = streaming_recording(kind, speed, seed)
     a = analyse_movie(rec.data, calibration=rec.calibration, options=OPTIONS)
     # achieved over these 12 fields: counts exact, core/centre <= 11 um off, period +-0.0 %,
     # speed -2.3 .. +0.5 %
     assert _problems(kind, rec, a) == []
+    # territories partition the field: shares of it add up to at most 1 (was 1.3 with the
+    # border strip the texture step leaves out given to the territory but not to the field)
+    assert 0.0 < sum(c["field_share"] for c in a.summary["centres"]) <= 1.0 + 1e-9
     tex = a.summary["texture"]
     assert tex["corrected"] is True
     # synthetic truth: the stream speed; achieved -12 % .. -2 % (converging texture, see

@@ -69,16 +69,23 @@ def _without_hole_echoes(cs, holey, *, margin_px, merge_px, wl_px, min_hole_px):
     """`cs` without the small target centres next to a hole inside the cell field (an
     obstacle, a cleared strip): waves bending round the hole's end look like a source
     there (specks and other holes the smoothing bridges do not count).  Next to: within the measuring margin plus the centres' merge radius; small: a
-    territory under a disc of half a wavelength.  Holes that reach the frame's border (a
+    territory under a disc of half a wavelength.  Wide holes that reach the frame's border (a
     dish edge) do not count: a real pacemaker by the dish edge keeps its centre (measured:
-    a 0.07-share "target" beside a relay field's obstacle; one by a dish edge is real)."""
+    a 0.07-share "target" beside a relay field's obstacle; one by a dish edge is real); thin
+    ones (a cleared strip from the border in, at most a quarter wavelength from the cells
+    everywhere) do (measured: 0.05-share "targets" beside a streaming field's strip)."""
     if holey.all() or not len(cs.centres["id"]) or not np.isfinite(wl_px):
         return cs
     lab, n = scipy.ndimage.label(~holey)
     border = np.unique(np.concatenate([lab[0], lab[-1], lab[:, 0], lab[:, -1]]))
     sizes = np.bincount(lab.ravel(), minlength=n + 1)
+    # a hole that reaches the border counts when it is thin (a cleared strip, a scratch: no
+    # point of it farther than a quarter wavelength from the cells), not when wide (a dish edge)
+    depth = scipy.ndimage.maximum(scipy.ndimage.distance_transform_edt(lab > 0), lab, np.arange(n + 1))
+    thin = np.asarray(depth) <= 0.25 * wl_px
+    counts = ~np.isin(np.arange(n + 1), border) | thin
     # specks and dead pixels (holes the normalised convolution bridges) do not count either
-    inner = (lab > 0) & ~np.isin(lab, border) & (sizes[lab] >= max(int(min_hole_px), 1))
+    inner = (lab > 0) & counts[lab] & (sizes[lab] >= max(int(min_hole_px), 1))
     if not inner.any():
         return cs
     ny, nx = holey.shape
@@ -306,7 +313,12 @@ def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, sp
     dt_min = cal.frame_interval_min
     nyb, nxb = valid.shape
     rr, cc = np.mgrid[0:nyb, 0:nxb]
-    field_px = max(float(valid.sum()), 1.0)
+    # the shares' field: what the territories partition (the measured pixels and the
+    # unmeasured border strips given to the nearest territory), so that shares add up to <= 1
+    shared = valid | (cs.labels > 0)
+    if len(cs.window_labels):
+        shared = shared | (cs.window_labels > 0).any(axis=0)
+    field_px = max(float(shared.sum()), 1.0)
     area_mm2 = px_b * px_b * 1e-6
     core_by_track = {c["id"]: c for c in spiral_cores}
     arrivals = _arrival_times(maps.arrivals, valid.shape)
