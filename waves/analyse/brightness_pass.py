@@ -28,14 +28,16 @@ FADE_NOTE_PERCENT = 10.0  # a slow brightness change above this is named in the 
 # static spread 11 %), where the slow "fade" fitted was the waves spreading (-11 %) and dividing
 # it out moved a pacemaker's period by -0.09 %.
 MAX_WAVE_TO_STRUCTURE = 0.2
+RESIDUAL_SIGMA_PX = 2.0  # analysis-grid px: above the cell grain (1-2 px), far below a wavelength
 
 
 def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: float,
-             cell_mask: np.ndarray | None = None) -> pb.Brightness | None:
+             cell_mask: np.ndarray | None = None, lag_frames: int = 4) -> pb.Brightness | None:
     """Per-frame gain and offset of the binned movie against its temporal mean,
     over the dish (the dark surround would only add noise to the fit); None
     when the mean image has no light (background-subtracted data: a gain
-    means nothing there)."""
+    means nothing there).  `lag_frames`: about a quarter of the waves' period
+    (`_wave_residual`)."""
     if not float(mean_b.max()) > 0:
         return None
     field = preprocess.dish_mask(mean_b)
@@ -45,19 +47,17 @@ def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: floa
     ref = mean_b.ravel()[idx]
     if not float(ref.mean()) > 0:
         return None
-    gains, offsets, scales = [], [], []
+    gains, offsets = [], []
     for t0 in range(0, movie.shape[0], block):  # block by block: memory bounded by the block
         b = movie.frames(t0, t0 + block)
         smp = b.reshape(len(b), -1)[:, idx].astype(np.float64)
         g, o = pb.frame_brightness(smp, ref)
-        r = smp - g[:, None] * ref[None, :] - o[:, None]  # the waves and the noise
-        scales.append(1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1))
         gains.append(g)
         offsets.append(o)
     gain, offset = np.concatenate(gains), np.concatenate(offsets)
     bright = pb.brightness_correction(gain, offset, slow_frames=slow_frames)
     structure = 1.4826 * float(np.median(np.abs(ref - np.median(ref))))
-    waves = float(np.median(np.concatenate(scales)))
+    waves = _wave_residual(movie, mean_b, gain, offset, idx, lag=lag_frames)
     if waves > MAX_WAVE_TO_STRUCTURE * structure:
         # the mean image is mostly the waves' own pattern: a frame's gain on it is the waves'
         # strength, not the lamp's; only the flicker frames are corrected
@@ -67,6 +67,36 @@ def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: floa
             "of the mean level) are not small against the static image's structure "
             f"({structure / max(float(ref.mean()), 1e-12):.1%}), so a lamp fade cannot be told from them")
     return bright
+
+
+def _wave_residual(movie: _Movie, mean_b: np.ndarray, gain: np.ndarray, offset: np.ndarray, idx: np.ndarray,
+                   *, lag: int, n_pairs: int = 48) -> float:
+    """Robust spread of how the per-frame fit's residual (frame - gain mean -
+    offset) changes over `lag` frames (a quarter of a typical period), divided
+    by sqrt(2), at the sample pixels `idx`, over `n_pairs` frame pairs spread
+    over the movie, after a Gaussian of RESIDUAL_SIGMA_PX: the waves' own
+    pattern changes that fast and is broad, so it stays; moving texture
+    (streaming cells, an uncorrected drift, growing mounds) hardly changes
+    over a quarter period and the camera noise is smoothed away (measured on a
+    recording with every degradation at once: the plain residual was 20 % of
+    the level, as large as the static structure, and the fade was left in)."""
+    import scipy.ndimage as ndi
+
+    nt = movie.shape[0]
+    lag = int(min(max(lag, 1), max(nt - 1, 1)))
+    if nt <= lag:
+        return 0.0
+
+    def residual(i: int) -> np.ndarray:
+        r = movie.frames(i, i + 1)[0].astype(np.float64) - gain[i] * mean_b - offset[i]
+        return ndi.gaussian_filter(r, RESIDUAL_SIGMA_PX, mode="nearest").ravel()[idx]
+
+    starts = np.unique(np.linspace(0, nt - 1 - lag, min(nt - lag, n_pairs)).round().astype(np.int64))
+    scales = []
+    for i in starts:
+        d = (residual(int(i) + lag) - residual(int(i))) / np.sqrt(2.0)
+        scales.append(1.4826 * float(np.median(np.abs(d - np.median(d)))))
+    return float(np.median(scales))
 
 
 def replace_flicker(movie: _Movie, bright: pb.Brightness) -> list[int]:

@@ -25,8 +25,11 @@ class FieldPlan:
     factor: int
 
 
-def plan(data, *, factor: int, cell_mask: np.ndarray | None, pixel_size_um: float) -> FieldPlan:
-    """Scan for saturated and dead pixels and set up the weighted binning."""
+def plan(data, *, factor: int, cell_mask: np.ndarray | None, pixel_size_um: float,
+         real_frames: np.ndarray | None = None) -> FieldPlan:
+    """Scan for saturated and dead pixels and set up the weighted binning.
+    `real_frames`: (grid frames,) bool, False for interpolated frames (the
+    statistics' noise estimate leaves them out); None: all as recorded."""
     ny, nx = (int(v) for v in data.shape[1:])
     user = None if cell_mask is None else preprocess.user_cell_mask(cell_mask, (ny, nx))
     bad = preprocess.scan_bad_pixels(data, speck_radius_px=max(2.0, preprocess.cellfield.SPECK_RADIUS_UM / pixel_size_um))
@@ -50,7 +53,8 @@ def plan(data, *, factor: int, cell_mask: np.ndarray | None, pixel_size_um: floa
         w = weight.astype(np.float32)
         coverage = preprocess.bin_frames(w, factor) if factor > 1 else w
         good_b = coverage > 0
-    return FieldPlan(weight=weight, coverage=coverage, stats=preprocess.FieldStats((nyb, nxb), good_b), bad=bad,
+    return FieldPlan(weight=weight, coverage=coverage, stats=preprocess.FieldStats((nyb, nxb), good_b, real=real_frames),
+                     bad=bad,
                      user_mask=user, factor=factor)
 
 

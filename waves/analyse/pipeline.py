@@ -101,7 +101,8 @@ def analyse_movie(
         sigma_px = min(lam / factor / 12.0, 8.0) if lam is not None else 1.0
     nyb, nxb = ny // factor, nx // factor
     t_field = time.perf_counter()
-    fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um)
+    fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um,
+                            real_frames=None if tb is None else tb.recorded & ~tb.excluded)
     drift = drift_auto.on_grid(drift_plan, factor=factor, shape_b=(nyb, nxb), frame_interval_min=dt_min,
                                sigma_px=sigma_px)
     warnings += drift.warnings
@@ -123,8 +124,9 @@ def analyse_movie(
         bright = None
         if options.brightness:  # lamp fade and flicker (waves.preprocess.brightness)
             t_bright = time.perf_counter()
-            bright = brightness_pass.estimate(movie, mean_b, block=block,
-                                              slow_frames=options.period_band_min[1] / dt_min, cell_mask=cells.mask)
+            bright = brightness_pass.estimate(
+                movie, mean_b, block=block, slow_frames=options.period_band_min[1] / dt_min, cell_mask=cells.mask,
+                lag_frames=drift_auto.look_lag_frames(options.period_band_min, dt_min, nt))
             timings["brightness_s"] = time.perf_counter() - t_bright
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
@@ -141,9 +143,15 @@ def analyse_movie(
             brightness_block = {"method": "not estimated: the mean image has no light (background-subtracted "
                                           "data)" if options.brightness else "off (--no-brightness)"}
         bar.close()
+        # the texture step's background keeps periods up to the band's top; the measurements look
+        # no further than twice the dominant period (the pass band below), nor need it to
+        period_pre, _ = _dominant_period_frames(movie, passband_user)
+        texture_band = options.period_band_min
+        if period_pre is not None:
+            texture_band = (texture_band[0], max(texture_band[0] * 1.5, min(texture_band[1], 2.0 * period_pre * dt_min)))
         texture, note = correct_streaming(movie.frames, movie.write, movie.shape, smoothing_px=sigma_px,
                                           pixel_size_um=px_um, frame_interval_s=cal.frame_interval_s,
-                                          period_band_min=options.period_band_min)
+                                          period_band_min=texture_band)
         notes.extend([note] if note else [])
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()

@@ -267,6 +267,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "territory_labels": cs.labels.astype(np.int32),
         "interval_cv": np.where(valid, maps.interval_cv, np.nan).astype(np.float32),
         "amplitude": maps.amplitude,
+        "signal_to_noise": maps.snr if maps.snr is not None else np.full((nyb, nxb), np.nan, np.float32),
         "mean_image": mean_b,
         "covered": covered,
     }

@@ -254,8 +254,15 @@ class FieldStats:
     of +-10 % add a spread of about 1.4 % of the level everywhere, which
     leaves an empty surround far below the cells' spread."""
 
-    def __init__(self, shape_yx: tuple[int, int], good: np.ndarray | None = None) -> None:
+    def __init__(self, shape_yx: tuple[int, int], good: np.ndarray | None = None,
+                 real: np.ndarray | None = None) -> None:
+        """`real` ((n frames,) bool or None): frames as recorded; the
+        frame-to-frame noise (`slow_spread`) comes only from pairs of them
+        (an interpolated frame has less noise: with 10 % of the frames
+        interpolated the noise left in a dark surround's slow spread made a
+        dim dish edge look like cells)."""
         self.shape = tuple(int(v) for v in shape_yx)
+        self.real = None if real is None else np.asarray(real, dtype=bool)
         self.good = np.ones(self.shape, dtype=bool) if good is None else np.asarray(good, dtype=bool)
         self._s = [np.zeros(self.shape, np.float64) for _ in range(4)]  # sums of y, y t, y t^2, y^2
         self._n = 0
@@ -268,7 +275,12 @@ class FieldStats:
         b = np.asarray(block, dtype=np.float64)
         if len(b):
             prev = b[:-1] if self._last is None else np.concatenate([self._last[None], b[:-1]])
+            first = t0 + len(b) - len(prev)  # frame index of the first difference's later frame
             d = b[len(b) - len(prev):] - prev
+            if self.real is not None:
+                idx = np.arange(first, t0 + len(b))
+                both = self.real[idx] & self.real[idx - 1]
+                d = d[both]
             self._d2 += np.einsum("tyx,tyx->yx", d, d)
             self._nd += len(d)
             self._last = b[-1].copy()
