@@ -183,18 +183,18 @@ def _pooled_peak(power: np.ndarray, freqs: np.ndarray, band: np.ndarray) -> floa
     peak = (pooled[idx] >= left) & (pooled[idx] >= right)
     if not peak.any():
         return None
-    ratio = np.where(peak, ratio, -np.inf)
     freqs, pooled = freqs[idx], pooled[idx]
-    k = int(np.argmax(ratio))
+    k = int(np.argmax(np.where(peak, ratio, -np.inf)))
     # a harmonic of spiky waves can stand out more than their fundamental: as
     # waves.measure.period.spectral_period does, a sub-harmonic (1/3, then 1/2)
-    # with at least HARMONIC_SHARE of the peak's power is the period
+    # with at least HARMONIC_SHARE of the peak's power is the period, when it is a peak
+    # itself standing LOOK_PROMINENCE above the trend (a red continuum is no sub-harmonic)
     step = float(freqs[1] - freqs[0])
     for div in (3, 2):
         j = int(np.argmin(np.abs(freqs - freqs[k] / div)))
         if abs(freqs[j] - freqs[k] / div) > 1.01 * step:
             continue  # the sub-harmonic lies below the band
         j = max(0, j - 1) + int(np.argmax(pooled[max(0, j - 1) : j + 2]))
-        if pooled[j] >= HARMONIC_SHARE * pooled[k]:
+        if peak[j] and ratio[j] >= LOOK_PROMINENCE and pooled[j] >= HARMONIC_SHARE * pooled[k]:
             return float(freqs[j])
     return float(freqs[k])
