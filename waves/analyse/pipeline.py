@@ -9,7 +9,7 @@ import time
 import numpy as np
 
 from waves import preprocess
-from waves.analyse import brightness_pass, drift_auto
+from waves.analyse import brightness_pass, drift_auto, plausible
 from waves.analyse import field as cell_field
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look
@@ -78,7 +78,13 @@ def analyse_movie(
     nt = tb.n_grid if tb is not None else nt
     valid_grid = tb.valid if tb is not None else np.ones(nt, dtype=bool)
     dt_min = cal.frame_interval_min
-    passband_user = passband_from_periods(options.period_band_min, frame_interval_s=cal.frame_interval_s, n_frames=nt)
+    slips = plausible.calibration_warnings(cal.pixel_size_um, cal.frame_interval_s, (ny, nx))
+    warnings += slips
+    try:
+        passband_user = passband_from_periods(options.period_band_min, frame_interval_s=cal.frame_interval_s,
+                                              n_frames=nt)
+    except WavesError as exc:  # a band the frames cannot resolve: say so with the likely unit slip
+        raise type(exc)("; ".join([str(exc), *slips])) from None
     budget = options.memory_budget_mb * 1e6
     timings: dict = {}
 
@@ -253,6 +259,9 @@ def analyse_movie(
     result[0]["drift"] = drift.summary
     result[2]["drift"] = drift.table
     result[0]["texture"] = texture
+    unlikely = plausible.result_warnings(result[0])
+    warnings += unlikely
+    result[0]["warnings"] = list(result[0]["warnings"]) + unlikely
     timings["summary_s"] = time.perf_counter() - t0
     timings["total_s"] = time.perf_counter() - t_start
     return Analysis(summary=result[0], maps=result[1], tables=result[2], stacks=result[3], warnings=tuple(warnings),
