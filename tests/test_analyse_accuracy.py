@@ -247,6 +247,10 @@ def test_a_sweeping_collision_line_makes_no_centre():
     a = analyse_movie(m.data, calibration=m.calibration)
     centres = a.summary["centres"]
     assert [c["kind"] for c in centres] == ["spiral", "target"]
+    # what was left out is kept, with the reason, in its own table (not counted as centres)
+    rej = a.tables["rejected_centres"]
+    assert len(rej["reason"]) == len(a.summary["rejected_centres"])
+    assert all("no time window" in r or "quarter wavelength" in r for r in rej["reason"])
     trim = a.summary["analysis"]["trimmed_frames_each_end"]
     area = m.truth.territory_area_mm2[trim : n - trim].mean(axis=0)
     for c, src, truth_area in zip(centres, sources, area, strict=True):

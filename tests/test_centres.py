@@ -81,3 +81,27 @@ def test_firing_regularity_of_a_jittered_target(seed):
     assert centre["interval_cv"] == pytest.approx(truth_cv, rel=0.20)
     # the period is the mean interval; achieved 0.06 % and 0.14 %
     assert centre["period_min"] == pytest.approx(np.mean(gaps), rel=0.005)
+
+
+def test_tiny_target_territories_are_rejected_with_their_reason():
+    # a known partition (synthetic): centre 1 holds the field but a 3-pixel patch, which is
+    # centre 2's in the whole movie and in the one window; a quarter-wavelength disc at a
+    # 20-px wavelength is 79 px, so centre 2 goes, its pixels to centre 1, with the reason kept
+    from waves.analyse.summary import _without_tiny_territories
+    from waves.measure.centres import CentreSet
+
+    labels = np.ones((30, 30), dtype=np.int32)
+    labels[0, :3] = 2
+    cs = CentreSet(
+        centres={"id": np.array([1, 2]), "kind": np.array(["target", "target"], dtype=object),
+                 "row": np.array([15.0, 0.0]), "col": np.array([15.0, 1.0]), "core_track": np.array([-1, -1]),
+                 "first_window": np.array([0, 0]), "last_window": np.array([0, 0]), "n_pixels": np.array([897, 3])},
+        labels=labels, window_areas={"window": np.array([0, 0]), "centre_id": np.array([1, 2]),
+                                     "n_pixels": np.array([897, 3])},
+        window_labels=labels[None].copy(),
+    )
+    out = _without_tiny_territories(cs, wl_px=20.0)
+    assert list(out.centres["id"]) == [1] and (out.labels == 1).all() and (out.window_labels == 1).all()
+    (kind, row, col, n, reason), = out.rejected
+    assert (kind, row, col, n) == ("target", 0.0, 1.0, 3) and "quarter wavelength" in reason
+    assert _without_tiny_territories(cs, wl_px=2.0).rejected == ()  # a disc under one pixel: both stay

@@ -145,8 +145,14 @@ def summary_lines(summary: dict) -> list[str]:
             return "not measured"
         return f"{q['median']:.3g} {unit} (IQR {q['q25']:.3g}-{q['q75']:.3g}, n={q['n']})"
 
-    lines = [
-        f"period          {fmt(summary.get('period_min'), 'min')}",
+    lines = [f"period          {fmt(summary.get('period_min'), 'min')}"]
+    analysis = summary.get("analysis") or {}
+    applied = analysis.get("passband_period_min")
+    asked = (analysis.get("options") or {}).get("period_band_min")
+    if applied:
+        lines.append(f"period band     {applied[0]:.3g}-{applied[1]:.3g} min applied"
+                     + (f" (of {asked[0]:g}-{asked[1]:g} min asked)" if asked else ""))
+    lines += [
         f"front speed     {fmt(summary.get('front_speed_um_per_min'), 'um/min')}",
         f"wavelength      {fmt(summary.get('wavelength_um'), 'um')}",
         f"spiral cores    {len(summary.get('spiral_cores') or [])} persistent",
@@ -157,5 +163,9 @@ def summary_lines(summary: dict) -> list[str]:
             f"centre {c['id']:<8d} {c['kind']:<7s} at x {c['x_um']:.0f} um, y {c['y_um']:.0f} um; "
             f"period {per} min; territory {c['territory_area_mm2']:.3g} mm^2"
         )
+    rejected = summary.get("rejected_centres") or []
+    if rejected:
+        lines.append(f"left out        {len(rejected)} candidate centre{'s' if len(rejected) > 1 else ''} "
+                     "that did not qualify (rejected_centres.csv says why)")
     lines += [f"warning         {w}" for w in summary.get("warnings") or []]
     return lines

@@ -37,6 +37,7 @@ MAP_FILES = {
     "territory_labels": "territory_labels.tif",
     "interval_cv": "interval_cv.tif",
     "amplitude": "amplitude.tif",
+    "signal_to_noise": "signal_to_noise.tif",
     "mean_image": "mean_image.tif",
     "cell_mask": "cell_mask.tif",
     "covered": "covered.tif",
@@ -52,6 +53,7 @@ TABLE_FILES = {
     "centres": "centres.csv",
     "territories_timecourse": "territories_timecourse.csv",
     "drift": "drift.csv",
+    "rejected_centres": "rejected_centres.csv",
 }
 
 

@@ -12,6 +12,13 @@ from waves.measure.period import spectral_period
 LOOK_PAD = 4  # zero-padding of the look's spectra: radial bins of a quarter of the field's frequency step
 LOOK_FRAMES = 24  # frames the look averages (12 left a recording with every degradation at once without a peak)
 LOOK_SMOOTH_PX = 4.0  # Gaussian sigma (recorded px) of the look's frames: texture out, waves kept
+NO_WAVE_HINT_PROMINENCE = 10.0  # an out-of-band peak named when nothing is found in the band
+# More than this share of the pixels peaking within RED_EDGE_RATIO of the band's longest
+# period is a red continuum's signature (measured: 56 % on tests/test_analyse_look.py's red
+# field; 0-1.4 % on the all-degradations class fields, a Barkley spiral, two paced channels and
+# a slow baseline swing)
+RED_EDGE_SHARE = 0.25
+RED_EDGE_RATIO = 1.15
 HARMONIC_SHARE = 0.25  # as waves.measure.period.spectral_period's default
 PEAK_BAND_RATIO = 1.3  # the pixels' periods are looked for within this ratio of the pooled peak
 LOOK_PROMINENCE = 3.0  # how far a wave ring's peak stands above the spectrum's trend (common practice, no source)
@@ -130,12 +137,7 @@ def _wavelength_look(data, *, shifts_px: np.ndarray | None = None, lag_frames: i
 def _dominant_period_frames(movie: _Movie, passband: tuple[float, float]) -> tuple[float | None, float]:
     """Median dominant period (frames) over a sparse grid of pixels, and the
     fraction of those pixels whose spectral peak stands clear of the noise."""
-    nt, ny, nx = movie.shape
-    step_r, step_c = max(1, ny // 24), max(1, nx // 24)
-    x = np.concatenate([movie.rows(r, r + 1)[:, 0, ::step_c] for r in range(0, ny, step_r)], axis=1)
-    x = x - x.mean(axis=0)
-    spec = np.abs(np.fft.rfft(x * np.hanning(nt)[:, None].astype(np.float32), axis=0)) ** 2
-    f = np.fft.rfftfreq(nt)
+    x, spec, f = _sampled_spectra(movie)
     band = (f >= passband[0]) & (f <= passband[1])
     if band.sum() < 3:
         return None, 0.0
@@ -145,6 +147,16 @@ def _dominant_period_frames(movie: _Movie, passband: tuple[float, float]) -> tup
     frac = float(clear.mean())
     if frac < 0.1:
         return None, frac
+    periods = spectral_period(x[:, clear], passband=passband)
+    periods = periods[np.isfinite(periods)]
+    if periods.size == 0:
+        return None, frac
+    if np.mean(periods >= 1.0 / (RED_EDGE_RATIO * passband[0])) <= RED_EDGE_SHARE:
+        # the pixels' own peaks (with their sub-harmonic check) hold several pacemakers'
+        # periods alike: their median sets a pass band that keeps them all
+        return float(np.median(periods)), frac
+    # many pixels peak in the band's slowest bins: a red continuum (slowly changing texture)
+    # outweighs the waves there; the waves are the pooled spectra's most prominent peak
     f_star = _pooled_peak(spec[:, clear], f, band)
     if f_star is None:
         return None, frac
@@ -154,6 +166,96 @@ def _dominant_period_frames(movie: _Movie, passband: tuple[float, float]) -> tup
     if periods.size == 0:
         return None, frac
     return float(np.median(periods)), frac
+
+
+def _sampled_spectra(movie: _Movie):
+    """(x, power, freqs): the time courses of a sparse grid of pixels (about 24 x 24,
+    mean removed), their Hann-windowed power spectra and the frequencies (cycles/frame)."""
+    nt, ny, nx = movie.shape
+    step_r, step_c = max(1, ny // 24), max(1, nx // 24)
+    x = np.concatenate([movie.rows(r, r + 1)[:, 0, ::step_c] for r in range(0, ny, step_r)], axis=1)
+    x = x - x.mean(axis=0)
+    spec = np.abs(np.fft.rfft(x * np.hanning(nt)[:, None].astype(np.float32), axis=0)) ** 2
+    return x, spec, np.fft.rfftfreq(nt)
+
+
+def _pooled(power: np.ndarray, band: np.ndarray) -> np.ndarray:
+    """Each pixel's spectrum over its in-band median, the median over pixels."""
+    power = np.asarray(power, dtype=np.float64)
+    norm = power / np.maximum(np.median(power[band], axis=0, keepdims=True), 1e-300)
+    return np.median(norm, axis=1)
+
+
+def _trend_ratio(pooled: np.ndarray, freqs: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """pooled[idx] over its running median from f / PEAK_BAND_RATIO**2 to f * PEAK_BAND_RATIO**2."""
+    w = PEAK_BAND_RATIO**2
+    trend = np.array([np.median(pooled[(freqs >= freqs[k] / w) & (freqs <= freqs[k] * w)]) for k in idx])
+    return pooled[idx] / np.maximum(trend, 1e-300)
+
+
+def _local_max(pooled: np.ndarray) -> np.ndarray:
+    left = np.r_[-np.inf, pooled[:-1]]
+    right = np.r_[pooled[1:], -np.inf]
+    return (pooled >= left) & (pooled >= right)
+
+
+def band_warnings(movie: _Movie, passband: tuple[float, float], period_frames: float | None, *,
+                  frame_interval_min: float, band_min: tuple[float, float]) -> list[str]:
+    """What the period band may hide: the dominant period at the band's edge, a
+    sub-harmonic peak outside the band (the half-period trap: a band that ends
+    below the waves' period finds their second harmonic), a stronger peak
+    outside it; each with the band to try.  With `period_frames` None (nothing
+    found in the band): a clear periodic signal outside it."""
+    x, spec, f = _sampled_spectra(movie)
+    band = (f >= passband[0]) & (f <= passband[1])
+    if band.sum() < 3:
+        return []
+    nt = movie.shape[0]
+    out = []
+    lo, hi = band_min
+    has = spec[band].max(axis=0) > 0  # pixels outside the cell field are 0
+    if not has.any():
+        return []
+    pooled = _pooled(spec[:, has], band)
+    usable = (f >= 2.0 / nt) & (f < 0.5)  # two cycles in the movie at least; below Nyquist
+    peaks = _local_max(pooled) & usable
+    idx = np.flatnonzero(peaks)
+    ratio = dict(zip(idx.tolist(), _trend_ratio(pooled, f, idx).tolist(), strict=True)) if len(idx) else {}
+    if period_frames is None:
+        clear = [k for k, r in ratio.items() if not band[k] and r >= NO_WAVE_HINT_PROMINENCE]
+        if not clear:
+            return []
+        k = max(clear, key=lambda j: ratio[j])
+        p_out = 1.0 / f[k] * frame_interval_min
+        return [f"a clear periodic signal ({p_out:.3g} min) lies outside the period band {lo:g}-{hi:g} min; if it is "
+                f"the waves, try --period-band {min(lo, 0.5 * p_out):.3g} {max(hi, 2.0 * p_out):.3g}"]
+    p = period_frames * frame_interval_min
+    k0 = int(np.argmin(np.abs(f - 1.0 / period_frames)))
+    p0 = float(pooled[max(0, k0 - 1) : k0 + 2].max())
+    suggest = None
+    k_sub = int(np.argmin(np.abs(f - 0.5 / period_frames)))
+    near = [k for k in (k_sub - 1, k_sub, k_sub + 1) if k in ratio and not band[k]]
+    if near:
+        k = max(near, key=lambda j: pooled[j])
+        if ratio[k] >= LOOK_PROMINENCE and pooled[k] >= HARMONIC_SHARE * p0:
+            p_sub = 1.0 / f[k] * frame_interval_min
+            suggest = (lo, max(hi, 2.5 * p_sub))
+            out.append(f"the waves may have a period of {p_sub:.3g} min, outside the period band {lo:g}-{hi:g} min: "
+                       f"what was measured ({p:.3g} min) looks like its second harmonic; try --period-band "
+                       f"{suggest[0]:g} {suggest[1]:.3g}")
+    if suggest is None:
+        stronger = [k for k, r in ratio.items() if not band[k] and r >= LOOK_PROMINENCE and pooled[k] > p0]
+        if stronger:
+            k = max(stronger, key=lambda j: pooled[j])
+            p_out = 1.0 / f[k] * frame_interval_min
+            suggest = (min(lo, 0.5 * p_out), max(hi, 2.0 * p_out))
+            out.append(f"a stronger periodic signal ({p_out:.3g} min) lies outside the period band {lo:g}-{hi:g} min; "
+                       f"if it is the waves, try --period-band {suggest[0]:.3g} {suggest[1]:.3g}")
+    if suggest is None and (p <= 1.05 * lo or p >= hi / 1.05):
+        edge = "lower" if p <= 1.05 * lo else "upper"
+        out.append(f"the dominant period ({p:.3g} min) sits at the {edge} edge of the period band {lo:g}-{hi:g} min: "
+                   "the waves' period may lie beyond it; try a band that reaches past it")
+    return out
 
 
 def _pooled_peak(power: np.ndarray, freqs: np.ndarray, band: np.ndarray) -> float | None:
@@ -170,17 +272,12 @@ def _pooled_peak(power: np.ndarray, freqs: np.ndarray, band: np.ndarray) -> floa
     pixel's period came out 15.2 min for 6 min waves)."""
     if band.sum() < 3 or power.shape[1] == 0:
         return None
-    norm = power / np.maximum(np.median(power[band], axis=0, keepdims=True), 1e-300)
-    pooled = np.median(norm, axis=1)
-    w = PEAK_BAND_RATIO**2
+    pooled = _pooled(power, band)
     idx = np.flatnonzero(band)
-    trend = np.array([np.median(pooled[(freqs >= freqs[k] / w) & (freqs <= freqs[k] * w)]) for k in idx])
-    ratio = pooled[idx] / np.maximum(trend, 1e-300)
+    ratio = _trend_ratio(pooled, freqs, idx)
     # only local maxima (against the neighbours in or out of the band): a peak's flank above
     # a noise floor has a high ratio too, and a band edge on a continuum rising beyond it is no peak
-    left = np.r_[-np.inf, pooled[:-1]][idx]
-    right = np.r_[pooled[1:], -np.inf][idx]
-    peak = (pooled[idx] >= left) & (pooled[idx] >= right)
+    peak = _local_max(pooled)[idx]
     if not peak.any():
         return None
     freqs, pooled = freqs[idx], pooled[idx]

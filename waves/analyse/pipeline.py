@@ -12,7 +12,7 @@ from waves import preprocess
 from waves.analyse import brightness_pass, drift_auto, plausible
 from waves.analyse import field as cell_field
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
-from waves.analyse.look import _dominant_period_frames, _wavelength_look
+from waves.analyse.look import _dominant_period_frames, _wavelength_look, band_warnings
 from waves.analyse.options import (
     HALO_PX,
     PAD_PERIODS,
@@ -163,6 +163,8 @@ def analyse_movie(
         t0 = time.perf_counter()
         period0, clear_frac = _dominant_period_frames(movie, passband_user)
         if period0 is None:
+            hint = band_warnings(movie, passband_user, None, frame_interval_min=dt_min,
+                                 band_min=options.period_band_min)
             warnings.append(
                 "no waves found: no periodic signal stands out of the noise in the period band "
                 f"{options.period_band_min[0]:g}-{options.period_band_min[1]:g} min "
@@ -175,6 +177,7 @@ def analyse_movie(
                     else ""
                 )
             )
+            warnings += hint
             grid = _grid(cal, factor)
             empty = _empty_result(cal, options, warnings, notes, sigma_px * px_um, mean_b, grid, timings, t_start)
             empty.summary["recording"] = recording
@@ -185,6 +188,9 @@ def analyse_movie(
             empty.summary["texture"] = texture
             cell_field.attach_to_empty(empty, cells, factor=factor)
             return empty
+        hidden = band_warnings(movie, passband_user, period0, frame_interval_min=dt_min,
+                               band_min=options.period_band_min)
+        warnings += hidden
         f0 = 1.0 / period0
         passband = (max(passband_user[0], 0.5 * f0), min(passband_user[1], 1.6 * f0))
         trim = int(math.ceil(0.75 * period0))
@@ -195,6 +201,7 @@ def analyse_movie(
                 f"too few frames: the movie holds {nt} frames, {nt / period0:.1f} periods of "
                 f"{period0 * dt_min:.1f} min; at least {int(math.ceil(3.5 * period0))} frames "
                 "(3.5 periods) are needed to trim filter edges and still count two cycles"
+                + "".join(f"; {w}" for w in hidden)
             )
         win = max(4, min(int(round(options.window_periods * period0)), usable))
         step = max(1, win // 2)

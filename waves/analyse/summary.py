@@ -93,7 +93,39 @@ def _without_hole_echoes(cs, holey, *, margin_px, merge_px, wl_px, min_hole_px):
     c = np.clip(np.rint(cs.centres["col"]).astype(int), 0, nx - 1)
     near = scipy.ndimage.distance_transform_edt(~inner)[r, c] <= max(margin_px, 1.0) + merge_px
     small = cs.centres["n_pixels"] < np.pi * (0.5 * wl_px) ** 2
-    return without_centres(cs, (cs.centres["kind"] == "target") & near & small)
+    return without_centres(cs, (cs.centres["kind"] == "target") & near & small,
+                           reason="beside a hole in the cell field: waves bending round it, not a source")
+
+
+def _without_tiny_territories(cs, *, wl_px):
+    """`cs` without target centres whose territory (whole movie and every window)
+    stays under a disc of a quarter wavelength: a source holds at least the ring
+    of its first wave (issue 13 measured zero-territory "targets" on the image edge of
+    real-looking fields).  Spirals keep their place: the core is the evidence."""
+    if not len(cs.centres["id"]) or not np.isfinite(wl_px):
+        return cs
+    most = cs.centres["n_pixels"].astype(np.float64).copy()
+    wa = cs.window_areas
+    for i, cid in enumerate(cs.centres["id"]):
+        sel = wa["centre_id"] == cid
+        if sel.any():
+            most[i] = max(most[i], float(wa["n_pixels"][sel].max()))
+    return without_centres(cs, (cs.centres["kind"] == "target") & (most < np.pi * (0.25 * wl_px) ** 2),
+                           reason="territory smaller than a disc of a quarter wavelength in every window")
+
+
+def _rejected_table(rejected, *, factor: int, px: float) -> dict:
+    """tables['rejected_centres']: candidates left out of the centres, with the reason
+    (recorded-image um, like the centres)."""
+    rows = list(rejected)
+    area = (px * factor) ** 2 * 1e-6
+    return {
+        "kind": np.asarray([r[0] for r in rows], dtype=object),
+        "x_um": np.asarray([(r[2] * factor + 0.5 * (factor - 1)) * px for r in rows], dtype=np.float64),
+        "y_um": np.asarray([(r[1] * factor + 0.5 * (factor - 1)) * px for r in rows], dtype=np.float64),
+        "territory_area_mm2": np.asarray([r[3] * area for r in rows], dtype=np.float64),
+        "reason": np.asarray([r[4] for r in rows], dtype=object),
+    }
 
 
 def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
@@ -162,6 +194,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         fill=in_field & (~covered | (amp == 0)),
     )
     cs = _without_hole_echoes(cs, holey, margin_px=margin_px, merge_px=merge_px, wl_px=wl_px, min_hole_px=small)
+    cs = _without_tiny_territories(cs, wl_px=wl_px)
     speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
 
     to_um_per_min = px_b / dt_min
@@ -235,6 +268,12 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "warnings": list(warnings),
         # extra keys
         "centres_per_cm2": (len(centres) / (field_px * px_b * px_b * 1e-8)) if field_px > 0 else None,
+        # candidates that did not earn a place among the centres, with the reason (not counted above)
+        "rejected_centres": [
+            {"kind": k, "x_um": float(x), "y_um": float(y), "reason": r}
+            for k, x, y, r in zip(*(_rejected_table(cs.rejected, factor=factor, px=cal.pixel_size_um)[c]
+                                    for c in ("kind", "x_um", "y_um", "reason")), strict=True)
+        ],
         "unassigned_share": (
             float(np.sum(valid & (cs.labels == 0)) / field_px) if field_px > 0 else None
         ),
@@ -291,6 +330,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "period_timecourse": course_tab,
         "dispersion": dispersion,
         "centres": centres_tab,
+        "rejected_centres": _rejected_table(cs.rejected, factor=factor, px=cal.pixel_size_um),
         "territories_timecourse": terr_course,
     }
     stacks = {"territory_labels_windows": cs.window_labels}

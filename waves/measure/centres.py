@@ -54,6 +54,7 @@ class CentreSet:
     labels: np.ndarray
     window_areas: dict
     window_labels: np.ndarray
+    rejected: tuple = ()  # (kind, row, col, n_pixels, reason) of candidates left out, in order
 
 
 def _link(points: np.ndarray, radius: float) -> np.ndarray:
@@ -176,7 +177,8 @@ def track_centres(
         # that only the movie-averaged direction field shows is where a moving collision line
         # averaged out (measured: two such of 0.4-0.5 mm^2 between a 6-min spiral and a
         # 6.5-min target, whose collision line sweeps as the faster source gains ground)
-        cs = without_centres(cs, (centres["first_window"] < 0) & (centres["kind"] == "target"))
+        cs = without_centres(cs, (centres["first_window"] < 0) & (centres["kind"] == "target"),
+                             reason="seen only in the movie-averaged direction field, in no time window")
     return cs
 
 
@@ -232,14 +234,18 @@ def emission_intervals(
     return np.diff(at)[both]
 
 
-def without_centres(cs: CentreSet, drop: np.ndarray) -> CentreSet:
+def without_centres(cs: CentreSet, drop: np.ndarray, *, reason: str = "") -> CentreSet:
     """`cs` without the centres where `drop` (bool per centre) is True: their
     territories go to the nearest remaining territory (whole movie and every
-    window), the remaining centres are numbered 1.. in their old order."""
+    window), the remaining centres are numbered 1.. in their old order; the
+    dropped ones join `rejected` with `reason`."""
     drop = np.asarray(drop, dtype=bool)
     if not drop.any():
         return cs
     c = cs.centres
+    rejected = cs.rejected + tuple(
+        (str(c["kind"][i]), float(c["row"][i]), float(c["col"][i]), int(c["n_pixels"][i]), reason)
+        for i in np.flatnonzero(drop))
     keep = ~drop
     new_id = np.zeros(len(drop) + 1, dtype=np.int64)
     new_id[1:][keep] = np.arange(1, int(keep.sum()) + 1)
@@ -262,4 +268,5 @@ def without_centres(cs: CentreSet, drop: np.ndarray) -> CentreSet:
                 areas["centre_id"].append(int(i))
                 areas["n_pixels"].append(n)
     window_areas = {k: np.asarray(v, dtype=np.int64) for k, v in areas.items()}
-    return CentreSet(centres=centres, labels=labels, window_areas=window_areas, window_labels=window_labels)
+    return CentreSet(centres=centres, labels=labels, window_areas=window_areas, window_labels=window_labels,
+                     rejected=rejected)
