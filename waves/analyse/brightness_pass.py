@@ -28,6 +28,7 @@ FADE_NOTE_PERCENT = 10.0  # a slow brightness change above this is named in the 
 # static spread 11 %), where the slow "fade" fitted was the waves spreading (-11 %) and dividing
 # it out moved a pacemaker's period by -0.09 %.
 MAX_WAVE_TO_STRUCTURE = 0.2
+MAX_LAMP_SWING = 4.0  # a slow gain changing more than this factor is no lamp fade (from memory, no source)
 QQ_RANGE = (0.05, 0.95)  # the quantiles the per-frame gain is fitted over (the tails: specks, holes)
 RESIDUAL_SIGMA_PX = 2.0  # analysis-grid px: above the cell grain (1-2 px), far below a wavelength
 
@@ -38,7 +39,7 @@ def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: floa
     over the dish (the dark surround would only add noise to the fit); None
     when the mean image has no light (background-subtracted data: a gain
     means nothing there).  `lag_frames`: about a quarter of the waves' period
-    (`_wave_residual`)."""
+    (`_wave_change`)."""
     if not float(mean_b.max()) > 0:
         return None
     field = preprocess.dish_mask(mean_b)
@@ -70,29 +71,45 @@ def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: floa
         f"Huber regression of each frame's sorted values on the temporal mean's ({100 * QQ_RANGE[0]:g}-"
         f"{100 * QQ_RANGE[1]:g} % quantiles)"))
     structure = 1.4826 * float(np.median(np.abs(ref - np.median(ref))))
-    waves = _wave_residual(movie, mean_b, gain, offset, idx, lag=lag_frames)
-    if waves > MAX_WAVE_TO_STRUCTURE * structure:
+    waves = _wave_change(movie, idx, lag=lag_frames)
+    slow = bright.gain[~bright.flicker] if (~bright.flicker).any() else bright.gain
+    swing = float(slow.max() / slow.min()) if float(slow.min()) > 0 else np.inf
+    if swing > MAX_LAMP_SWING:
+        # no lamp fades to a fraction like that within a recording: the image itself changed
+        # (measured: a simulated field settling from a random start "faded" by 86 %)
+        # and its jumps are the image's too: nothing is corrected, no frame is called flicker
+        bright = _slow_trend_left(bright, keep=np.zeros(len(bright.gain), dtype=bool), why=(
+            f"not applied: the slow trend would change the brightness {swing:.1f}-fold, more than any lamp "
+            "does within a recording, so the image itself changed"))
+    elif waves > MAX_WAVE_TO_STRUCTURE * structure:
         # the mean image is mostly the waves' own pattern: a frame's gain on it is the waves'
         # strength, not the lamp's; only the flicker frames are corrected
-        bright = dataclasses.replace(
-            bright, gain=np.where(bright.flicker, bright.gain, 1.0), offset=np.where(bright.flicker, bright.offset, 0.0),
-            method=bright.method + f"; slow trend not removed: the waves ({waves / max(float(ref.mean()), 1e-12):.1%} "
-            "of the mean level) are not small against the static image's structure "
-            f"({structure / max(float(ref.mean()), 1e-12):.1%}), so a lamp fade cannot be told from them")
+        level = max(float(ref.mean()), 1e-12)
+        bright = _slow_trend_left(bright, keep=bright.flicker, why=(
+            f"slow trend not removed: the waves ({waves / level:.1%} of the mean level) are not small against "
+            f"the static image's structure ({structure / level:.1%}), so a lamp fade cannot be told from them"))
     return bright
 
 
-def _wave_residual(movie: _Movie, mean_b: np.ndarray, gain: np.ndarray, offset: np.ndarray, idx: np.ndarray,
-                   *, lag: int, n_pairs: int = 48) -> float:
-    """Robust spread of how the per-frame fit's residual (frame - gain mean -
-    offset) changes over `lag` frames (a quarter of a typical period), divided
-    by sqrt(2), at the sample pixels `idx`, over `n_pairs` frame pairs spread
-    over the movie, after a Gaussian of RESIDUAL_SIGMA_PX: the waves' own
-    pattern changes that fast and is broad, so it stays; moving texture
-    (streaming cells, an uncorrected drift, growing mounds) hardly changes
-    over a quarter period and the camera noise is smoothed away (measured on a
-    recording with every degradation at once: the plain residual was 20 % of
-    the level, as large as the static structure, and the fade was left in)."""
+def _slow_trend_left(bright: pb.Brightness, *, keep: np.ndarray, why: str) -> pb.Brightness:
+    """`bright` with gain 1 and offset 0 except on the frames `keep` (which stay
+    flicker frames; the others are not), and `why` added to its method."""
+    return dataclasses.replace(bright, gain=np.where(keep, bright.gain, 1.0), offset=np.where(keep, bright.offset, 0.0),
+                               flicker=bright.flicker & keep, method=f"{bright.method}; {why}")
+
+
+def _wave_change(movie: _Movie, idx: np.ndarray, *, lag: int, n_pairs: int = 48) -> float:
+    """Robust spread of how the frames change over `lag` frames (a quarter of a
+    typical period), divided by sqrt(2), at the sample pixels `idx`, over
+    `n_pairs` frame pairs spread over the movie (the median over pairs: a
+    flicker frame spoils a few), after a Gaussian of RESIDUAL_SIGMA_PX.  The
+    waves' own pattern changes that fast and is broad, so it stays; moving
+    texture (streaming cells, an uncorrected drift, growing mounds) hardly
+    changes over a quarter period, a lamp fade by a fraction of a percent, and
+    the camera noise is smoothed away (measured on a recording with every
+    degradation at once: the fit's plain residual was 20 % of the level, as
+    large as the static structure, and the fade was left in).  No gain enters,
+    so a fit that a changing image fools cannot hide the waves from the guard."""
     import scipy.ndimage as ndi
 
     nt = movie.shape[0]
@@ -100,14 +117,14 @@ def _wave_residual(movie: _Movie, mean_b: np.ndarray, gain: np.ndarray, offset: 
     if nt <= lag:
         return 0.0
 
-    def residual(i: int) -> np.ndarray:
-        r = movie.frames(i, i + 1)[0].astype(np.float64) - gain[i] * mean_b - offset[i]
-        return ndi.gaussian_filter(r, RESIDUAL_SIGMA_PX, mode="nearest").ravel()[idx]
+    def smoothed(i: int) -> np.ndarray:
+        f = movie.frames(i, i + 1)[0].astype(np.float64)
+        return ndi.gaussian_filter(f, RESIDUAL_SIGMA_PX, mode="nearest").ravel()[idx]
 
     starts = np.unique(np.linspace(0, nt - 1 - lag, min(nt - lag, n_pairs)).round().astype(np.int64))
     scales = []
     for i in starts:
-        d = (residual(int(i) + lag) - residual(int(i))) / np.sqrt(2.0)
+        d = (smoothed(int(i) + lag) - smoothed(int(i))) / np.sqrt(2.0)
         scales.append(1.4826 * float(np.median(np.abs(d - np.median(d)))))
     return float(np.median(scales))
 

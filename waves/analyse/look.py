@@ -206,7 +206,7 @@ def band_warnings(movie: _Movie, passband: tuple[float, float], period_frames: f
     below the waves' period finds their second harmonic), a stronger peak
     outside it; each with the band to try.  With `period_frames` None (nothing
     found in the band): a clear periodic signal outside it."""
-    x, spec, f = _sampled_spectra(movie)
+    _, spec, f = _sampled_spectra(movie)
     band = (f >= passband[0]) & (f <= passband[1])
     if band.sum() < 3:
         return []

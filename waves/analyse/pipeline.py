@@ -151,7 +151,7 @@ def analyse_movie(
         bar.close()
         # the texture step's background keeps periods up to the band's top; the measurements look
         # no further than twice the dominant period (the pass band below), nor need it to
-        period_pre, _ = _dominant_period_frames(movie, passband_user)
+        period_pre, clear_pre = _dominant_period_frames(movie, passband_user)
         texture_band = options.period_band_min
         if period_pre is not None:
             texture_band = (texture_band[0], max(texture_band[0] * 1.5, min(texture_band[1], 2.0 * period_pre * dt_min)))
@@ -161,7 +161,9 @@ def analyse_movie(
         notes.extend([note] if note else [])
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
-        period0, clear_frac = _dominant_period_frames(movie, passband_user)
+        # the texture step changed the movie: look again; otherwise the first look stands
+        period0, clear_frac = (_dominant_period_frames(movie, passband_user) if texture.get("corrected")
+                               else (period_pre, clear_pre))
         if period0 is None:
             hint = band_warnings(movie, passband_user, None, frame_interval_min=dt_min,
                                  band_min=options.period_band_min)

@@ -152,7 +152,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         maps.interval_cv[~measured] = np.nan
     amp = np.nan_to_num(maps.amplitude, nan=0.0)
     # small low-amplitude holes (spiral cores oscillate weakly) stay inside the signal
-    wl_guess = float(np.nanmedian(maps.speed[0] * maps.period[0]))
+    lam = maps.speed[0] * maps.period[0]
+    wl_guess = float(np.nanmedian(lam)) if np.isfinite(lam).any() else float("nan")  # no speed: no guess
     hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
     filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole) & in_field & covered
     # cores are found where directions are (small holes bridged), not within the edge's margin
@@ -167,7 +168,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     valid = valid & measured
 
     # speeds only where the direction is steady and away from persistent cores
-    wl_px = float(np.nanmedian(np.where(valid, maps.speed[0] * maps.period[0], np.nan)))
+    lam = np.where(valid, lam, np.nan)
+    wl_px = float(np.nanmedian(lam)) if np.isfinite(lam).any() else float("nan")
     # ... and where the smoothing kernel saw signal all round (no dead patch, no second territory)
     # (outside the cell field the smoothing saw nothing: normalised convolution, not a dead patch)
     amp_seen = amp if in_field.all() else np.where(in_field, amp, np.inf)

@@ -284,8 +284,11 @@ def brightness_correction(gain_raw, offset_raw, *, slow_frames: float) -> Bright
         gain_slow = np.exp(_local_linear_1d(logg, good.astype(np.float64), sigma))
         offset_slow = _local_linear_1d(o, good.astype(np.float64), sigma)
     level = float(np.mean(gain_slow[good]))
-    gain = np.where(flicker, g, gain_slow) / level
-    offset = np.where(flicker, o, offset_slow)
+    # a flicker frame is replaced by its neighbours after cleaning; one without light of its own
+    # (gain <= 0, e.g. a dark frame of a field at rest) takes the slow trend, not a division by 0
+    own = flicker & (g > 0)
+    gain = np.where(own, g, gain_slow) / level
+    offset = np.where(own, o, offset_slow)
     return Brightness(
         gain_raw=g / level, offset_raw=o, gain=gain, offset=offset, flicker=flicker, z=z,
         method=("per-frame gain and offset: Huber regression of each frame on the temporal mean over the "
