@@ -187,9 +187,20 @@ def test_flat_movie_is_refused():
 
 
 def test_too_few_frames_is_refused():
-    m = _movie([S.TargetSource(500.0, 500.0, PERIOD)], shape=(40, 64, 64))
+    # fewer than 3.5 of the band's shortest period (2 min): refused
+    m = _movie([S.TargetSource(500.0, 500.0, PERIOD)], shape=(18, 64, 64))
     with pytest.raises(InputError, match="too few frames"):
         _analyse(m)
+
+
+def test_periods_the_movie_holds_too_few_times_are_not_taken_for_waves():
+    # 13.3 min of 6-min waves: 2.2 periods, too few to tell them from red noise (issue 13):
+    # "no waves detected", saying which periods were not tested
+    m = _movie([S.TargetSource(500.0, 500.0, PERIOD)], shape=(40, 64, 64))
+    s = _analyse(m).summary
+    assert s["period_min"] is None and s["detection"]["waves_detected"] is False
+    assert "were not tested" in s["detection"]["statement"]
+    assert s["detection"]["longest_period_tested_frames"] == pytest.approx(40 / 3.5)
 
 
 def test_delay_embedding_phase_agrees_with_hilbert():

@@ -354,7 +354,7 @@ def test_zslice_picks_the_plane_that_carries_the_waves(tmp_path, capsys):
     # a plane of noise holds no waves
     noise = _analyse(path, tmp_path / "z0", "--zslice", "0")
     assert noise["period_min"] is None and noise["spiral_cores"] == []
-    assert any("no waves found" in w for w in noise["warnings"])
+    assert any("no waves detected" in w for w in noise["warnings"])
     # without a choice the three planes are refused, naming the option
     capsys.readouterr()
     assert main(["analyse", str(path), "--out", str(tmp_path / "none"), "--quiet", "--no-report"]) == 2

@@ -233,7 +233,7 @@ def test_report_of_a_field_without_waves(tmp_path, rng):
     analyse_file(stack, out=tmp_path / "res")
     text = write_report(tmp_path / "res", stack_path=stack).read_text()
     assert _parse(text).sections == REQUIRED_SECTIONS
-    assert "no waves found" in text
+    assert "no waves detected" in text
     assert "there is no phase to show" in text
     assert "not measured" in text
 

@@ -140,28 +140,45 @@ def parse_settings(items: Sequence[str] | None) -> dict:
 def summary_lines(summary: dict) -> list[str]:
     """The lines `waves analyse` and `waves demo` print about a result."""
 
-    def fmt(q, unit):
+    conf = summary.get("confidence") or {}
+
+    def fmt(key, unit):
+        q = summary.get(key)
         if q is None:
             return "not measured"
-        return f"{q['median']:.3g} {unit} (IQR {q['q25']:.3g}-{q['q75']:.3g}, n={q['n']})"
+        ci = (conf.get(key) or {}).get("ci95")
+        interval = f"95 % interval {ci[0]:.3g}-{ci[1]:.3g}; " if ci else "no interval: too few windows and blocks; "
+        return f"{q['median']:.3g} {unit} ({interval}IQR {q['q25']:.3g}-{q['q75']:.3g}, n={q['n']} px)"
 
-    lines = [f"period          {fmt(summary.get('period_min'), 'min')}"]
+    lines = []
+    det = summary.get("detection")
+    if det and det.get("waves_detected"):
+        lines.append(f"waves           detected: {100 * det['significant_fraction']:.0f} % of the cell field beats "
+                     f"red noise at the {100 * det['level']:.0f} % level")
+    lines.append(f"period          {fmt('period_min', 'min')}")
     analysis = summary.get("analysis") or {}
     applied = analysis.get("passband_period_min")
     asked = (analysis.get("options") or {}).get("period_band_min")
     if applied:
         lines.append(f"period band     {applied[0]:.3g}-{applied[1]:.3g} min applied"
                      + (f" (of {asked[0]:g}-{asked[1]:g} min asked)" if asked else ""))
+    spread = [c["position_spread_um"] for c in conf.get("spiral_cores") or [] if c.get("position_spread_um") is not None]
     lines += [
-        f"front speed     {fmt(summary.get('front_speed_um_per_min'), 'um/min')}",
-        f"wavelength      {fmt(summary.get('wavelength_um'), 'um')}",
-        f"spiral cores    {len(summary.get('spiral_cores') or [])} persistent",
+        f"front speed     {fmt('front_speed_um_per_min', 'um/min')}",
+        f"wavelength      {fmt('wavelength_um', 'um')}",
+        f"spiral cores    {len(summary.get('spiral_cores') or [])} persistent"
+        + (f" (position spread {min(spread):.3g}-{max(spread):.3g} um)" if len(spread) > 1 else
+           f" (position spread {spread[0]:.3g} um)" if spread else ""),
     ]
+    ranges = {c["id"]: c for c in conf.get("centres") or []}
     for c in summary.get("centres") or []:
         per = "?" if c["period_min"] is None else f"{c['period_min']:.3g}"
+        r = ranges.get(c["id"]) or {}
+        across = (f" ({r['territory_min_mm2']:.3g}-{r['territory_max_mm2']:.3g} over {r['windows']} windows)"
+                  if r.get("windows", 0) > 1 else "")
         lines.append(
             f"centre {c['id']:<8d} {c['kind']:<7s} at x {c['x_um']:.0f} um, y {c['y_um']:.0f} um; "
-            f"period {per} min; territory {c['territory_area_mm2']:.3g} mm^2"
+            f"period {per} min; territory {c['territory_area_mm2']:.3g} mm^2{across}"
         )
     rejected = summary.get("rejected_centres") or []
     if rejected:

@@ -69,6 +69,10 @@ class Degradations:
       texture_contrast        relative sd of the granular dark-field texture (0 = uniform
                               cells; 0.5 is a strongly grainy field).
       texture_grain_px        Gaussian sd of one bright grain, pixels (a few px across).
+      texture_wander          relative sd of a slow random change of the scattering (cells
+                              shifting, rounding, clumping): red noise, each pixel a mix of
+                              AR(1) processes in time on grain-sized patches; 0 = off.
+      wander_time_min         correlation time of that change, minutes.
       texture_modulation      fractional change of the scattering at full excitation
                               (0.03-0.05 in real fields); None: 0.04 with texture, else 0.
       band_contrast           additive smooth band amplitude (fraction of full scale, peak
@@ -130,6 +134,8 @@ class Degradations:
 
     texture_contrast: float = 0.0
     texture_grain_px: float = 1.5
+    texture_wander: float = 0.0
+    wander_time_min: float = 10.0
     texture_modulation: float | None = None
     band_contrast: float | None = None
     vignetting: float = 0.0
@@ -177,6 +183,7 @@ class Degradations:
         # (name, low, high) closed ranges for plain numbers
         ranges = {
             "texture_contrast": (0.0, 1.0), "texture_grain_px": (0.3, 20.0),
+            "texture_wander": (0.0, 1.0), "wander_time_min": (0.01, 1e6),
             "vignetting": (0.0, 0.95), "ramp_direction_deg": (-360.0, 360.0),
             "spot_gain": (-0.95, 10.0), "spot_sd_frac": (0.01, 10.0),
             "full_well_e": (0.0, 1e9), "read_noise_counts": (0.0, 1e5),

@@ -54,6 +54,37 @@ def texture_field(shape_yx: tuple[int, int], deg: Degradations, rng: np.random.G
     return (out / out.mean()).astype(np.float32)
 
 
+
+WANDER_PATTERNS = 16  # independent patches patterns mixed per pixel
+
+
+def wander_fields(shape_yx: tuple[int, int], n_frames: int, dt_min: float, deg: Degradations,
+                  rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray] | None:
+    """Slow random change of the texture: (patterns (K, y, x), coefficients
+    (n_frames, K)); the change at frame i is ``coefficients[i] @ patterns``,
+    of sd ~1 per pixel.  Each pattern is white noise blurred to the grain size
+    (unit sd); each coefficient an AR(1) series of unit variance with
+    rho = exp(-dt / wander_time_min).  A sum of AR(1) series with the same rho
+    is itself AR(1): every pixel's change is red noise of that rho (the null
+    model of waves.measure.significance).  None when texture_wander is 0."""
+    if deg.texture_wander <= 0.0:
+        return None
+    k = WANDER_PATTERNS
+    pats = rng.standard_normal((k, *shape_yx))
+    g = max(deg.texture_grain_px, 1.0)
+    for j in range(k):
+        pats[j] = ndimage.gaussian_filter(pats[j], sigma=g, mode="wrap")
+        pats[j] /= max(float(pats[j].std()), 1e-12)
+    pats /= np.sqrt(k)
+    rho = float(np.exp(-dt_min / deg.wander_time_min))
+    coef = np.empty((n_frames, k))
+    coef[0] = rng.standard_normal(k)
+    shocks = rng.standard_normal((n_frames, k)) * np.sqrt(1.0 - rho * rho)
+    for i in range(1, n_frames):
+        coef[i] = rho * coef[i - 1] + shocks[i]
+    return pats.astype(np.float32), coef.astype(np.float32)
+
+
 def illumination_field(shape_yx: tuple[int, int], deg: Degradations) -> np.ndarray:
     """Camera-fixed illumination gain (y, x): vignetting x ramp x spot."""
     ny, nx = shape_yx

@@ -7,7 +7,9 @@ t = i * frame_interval_s:
 
 1. texture(t): the static granular texture, or, with streaming cells, the texture
    advected toward the stream centre (`waves.degrade_fields.stream_offset_px`,
-   cubic-spline resampling); mounds multiply it by 1 + mound_gain * (t / t_last) * profile;
+   cubic-spline resampling); a slow random change multiplies it by 1 + texture_wander *
+   w(t) (`waves.degrade_fields.wander_fields`, red noise); mounds multiply it by
+   1 + mound_gain * (t / t_last) * profile;
 2. sample = background * texture * (1 + s m e) + s band (e - 0.5) where cells are,
    empty_level * background elsewhere, + rim_gain * background * rim;
 3. stage drift: ``scipy.ndimage.shift(sample, drift_px[i], order=3)`` (content moves
@@ -40,6 +42,7 @@ from waves.degrade_fields import (
     rng_for,
     stream_offset_px,
     texture_field,
+    wander_fields,
 )
 from waves.errors import WavesError
 
@@ -124,6 +127,7 @@ class RecordingRenderer:
             self._texture = None
         else:
             self._texture = tex[pad : pad + self.canvas_yx[0], pad : pad + self.canvas_yx[1]]
+        self._wander = wander_fields(self.canvas_yx, self.n_frames, self.dt_min, deg, rng_for(seed, 8))
 
     # ------------------------------------------------------------------
 
@@ -149,6 +153,10 @@ class RecordingRenderer:
         if e.shape != self.canvas_yx:
             raise WavesError(f"excitation canvas has shape {e.shape}, expected {self.canvas_yx}")
         tex = self.texture_at(t)
+        if self._wander is not None:  # red-noise change of the scattering
+            pats, coef = self._wander
+            w = np.tensordot(coef[index], pats, axes=1)
+            tex = np.maximum(tex * (1.0 + np.float32(deg.texture_wander) * w), np.float32(0.05))
         if deg.mound_count:
             tex = tex * (1.0 + np.float32(deg.mound_gain * t / self.t_last_min) * self.mounds)
         bg = np.float32(self.background)

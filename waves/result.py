@@ -41,6 +41,7 @@ MAP_FILES = {
     "mean_image": "mean_image.tif",
     "cell_mask": "cell_mask.tif",
     "covered": "covered.tif",
+    "significant_wave": "significant_wave.tif",
 }
 
 STACK_FILES = {"territory_labels_windows": "territory_labels_windows.tif"}

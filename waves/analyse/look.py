@@ -134,19 +134,28 @@ def _wavelength_look(data, *, shifts_px: np.ndarray | None = None, lag_frames: i
     return None if lam is None else lam * look_bin
 
 
-def _dominant_period_frames(movie: _Movie, passband: tuple[float, float]) -> tuple[float | None, float]:
+def _dominant_period_frames(movie: _Movie, passband: tuple[float, float],
+                            significant: np.ndarray | None = None) -> tuple[float | None, float]:
     """Median dominant period (frames) over a sparse grid of pixels, and the
-    fraction of those pixels whose spectral peak stands clear of the noise."""
+    fraction of those pixels whose spectral peak stands clear of the noise.
+    With `significant` (the (y, x) map of waves.analyse.detect) only its
+    pixels count, and the fraction is theirs."""
     x, spec, f = _sampled_spectra(movie)
     band = (f >= passband[0]) & (f <= passband[1])
     if band.sum() < 3:
         return None, 0.0
-    pb = spec[band]
-    # a noise spectrum is flat: its peak is a few times its median; waves stand far out
-    clear = pb.max(axis=0) > 20.0 * np.median(pb, axis=0) + 1e-30
+    if significant is not None:
+        ny, nx = movie.shape[1:]
+        clear = np.asarray(significant, bool)[:: max(1, ny // 24), :: max(1, nx // 24)].ravel()
+        if not clear.any():
+            return None, 0.0
+    else:
+        pb = spec[band]
+        # a noise spectrum is flat: its peak is a few times its median; waves stand far out
+        clear = pb.max(axis=0) > 20.0 * np.median(pb, axis=0) + 1e-30
+        if clear.mean() < 0.1:
+            return None, float(clear.mean())
     frac = float(clear.mean())
-    if frac < 0.1:
-        return None, frac
     periods = spectral_period(x[:, clear], passband=passband)
     periods = periods[np.isfinite(periods)]
     if periods.size == 0:

@@ -9,7 +9,7 @@ import time
 import numpy as np
 
 from waves import preprocess
-from waves.analyse import brightness_pass, drift_auto, plausible
+from waves.analyse import brightness_pass, detect, drift_auto, plausible, strips
 from waves.analyse import field as cell_field
 from waves.analyse.clean import _bin_pass, _clean, _Movie, _progress
 from waves.analyse.look import _dominant_period_frames, _wavelength_look, band_warnings
@@ -161,17 +161,25 @@ def analyse_movie(
         notes.extend([note] if note else [])
         timings["clean_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
-        # the texture step changed the movie: look again; otherwise the first look stands
-        period0, clear_frac = (_dominant_period_frames(movie, passband_user) if texture.get("corrected")
-                               else (period_pre, clear_pre))
+        # are there waves at all? each pixel against red noise fitted to itself (waves.analyse.detect)
+        if detect.MIN_CYCLES / nt > passband_user[1]:
+            raise InputError(
+                f"too few frames: the movie holds {nt} frames ({nt * dt_min:.3g} min), fewer than "
+                f"{detect.MIN_CYCLES:g} periods of the band's shortest period ({options.period_band_min[0]:g} min); "
+                "waves cannot be told from noise, nor measured")
+        # (with the measurement's own per-pixel detrend, when it has one)
+        found = detect.detect(movie, passband_user, field_mask=cells.mask, detrend_degree=strips.DETREND_DEGREE)
+        period0, clear_frac = (_dominant_period_frames(movie, passband_user, significant=found.significant)
+                               if found.detected else (None, found.fraction))
+        timings["detection_s"] = time.perf_counter() - t0
         if period0 is None:
             hint = band_warnings(movie, passband_user, None, frame_interval_min=dt_min,
                                  band_min=options.period_band_min)
+            said = (found.statement(dt_min) if not found.detected else
+                    "no waves measured: the pixels with a significant periodic signal give no dominant period; "
+                    "period, speed, wavelength, cores and centres are not reported")
             warnings.append(
-                "no waves found: no periodic signal stands out of the noise in the period band "
-                f"{options.period_band_min[0]:g}-{options.period_band_min[1]:g} min "
-                f"({100 * clear_frac:.0f} % of sampled pixels show a clear spectral peak); "
-                "period, speed and cores are not reported"
+                said + f" (period band {options.period_band_min[0]:g}-{options.period_band_min[1]:g} min)"
                 + (
                     f"; the movie lasts {nt * dt_min:.1f} min, less than two periods at the band's upper "
                     "end: too few frames to find slow waves"
@@ -188,6 +196,8 @@ def analyse_movie(
             empty.tables["drift"] = drift.table
             empty.maps["covered"] = drift.covered
             empty.summary["texture"] = texture
+            empty.summary["detection"] = found.block() | {"statement": said}
+            empty.maps["significant_wave"] = found.significant.astype(np.uint8)
             cell_field.attach_to_empty(empty, cells, factor=factor)
             return empty
         hidden = band_warnings(movie, passband_user, period0, frame_interval_min=dt_min,
@@ -261,7 +271,10 @@ def analyse_movie(
         cells=cells,
         margin_px=cell_field.preprocess.margin_px(sigma_px if sigma_px > 0.3 else 0.0, HALO_PX),
         covered=drift.covered,
+        significant=found.significant,
     )
+    result[0]["detection"] = found.block()
+    result[1]["significant_wave"] = found.significant.astype(np.uint8)
     result[0]["recording"] = recording
     result[0]["brightness"] = brightness_block
     result[0]["analysis"]["amplitude_units"] = amplitude_units

@@ -10,11 +10,13 @@ import numpy as np
 import scipy.ndimage
 
 from waves import __version__, preprocess
+from waves.analyse import confidence
 from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
 from waves.analyse.segments import arrivals_by_stretch
 from waves.analyse.strips import _detect_and_track, _Maps
 from waves.measure.centres import emission_intervals, track_centres, without_centres
 from waves.measure.period import quartiles
+from waves.measure.significance import fill_holes_smaller_than
 from waves.measure.speed import (
     kernel_in_one_territory,
     kernel_saw_signal,
@@ -129,7 +131,9 @@ def _rejected_table(rejected, *, factor: int, px: float) -> dict:
 
 
 def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, lag, windows, usable, sigma_px,
-               mean_b, warnings, notes, frame_ok=None, cells=None, margin_px=0.0, covered=None):
+               mean_b, warnings, notes, frame_ok=None, cells=None, margin_px=0.0, covered=None, significant=None):
+    """`significant`: (y, x) bool, the pixels whose time course beats red noise
+    (waves.analyse.detect); nothing else is measured, and cores need it around them."""
     nyb, nxb = maps.amplitude.shape
     # pixels some frame has no data for (the border strip a drift correction leaves) are never measured
     covered = np.ones((nyb, nxb), dtype=bool) if covered is None else np.asarray(covered, dtype=bool)
@@ -156,6 +160,10 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     wl_guess = float(np.nanmedian(lam)) if np.isfinite(lam).any() else float("nan")  # no speed: no guess
     hole = int(max(64, (0.5 * wl_guess) ** 2)) if np.isfinite(wl_guess) else 64
     filled = preprocess.signal_mask(amp, threshold=options.min_amplitude, min_size_px=hole) & in_field & covered
+    # a wave that beats red noise; a spiral core's weak centre inside it counts
+    sig_ok = (fill_holes_smaller_than(np.asarray(significant, bool), hole) if significant is not None
+              else np.ones((nyb, nxb), dtype=bool))
+    filled &= sig_ok
     # cores are found where directions are (small holes bridged), not within the edge's margin
     tracks = _detect_and_track(maps.charges, signal=plaquettes_inside(filled & walkable), n_frames=usable,
                                period_frames=period0, frame_ok=frame_ok)
@@ -163,7 +171,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
     )
     # holes without a core are places without signal (obstacles, empty patches): out
-    valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks) & covered
+    valid = _signal_without_empty_holes(amp, filled, options, persistent.tracks) & covered & sig_ok
     valid_field = valid & in_field  # territories fill the whole cell field (margin: nearest territory)
     valid = valid & measured
 
@@ -212,14 +220,18 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     nreg = 3
     region = (np.minimum(np.arange(nyb) * nreg // nyb, nreg - 1)[:, None] * nreg
               + np.minimum(np.arange(nxb) * nreg // nxb, nreg - 1)[None, :])
+    period_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)  # per window, for the intervals
+    speed_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)
     for i, (w0, w1) in enumerate(windows):
         t_mid = (trim + 0.5 * (w0 + w1)) * dt_min
         pw = np.where(valid, maps.period[i + 1], np.nan)
+        period_w[i] = pw
         q = quartiles(pw * dt_min)
         if q is not None:
             course.append({"t_min": float(t_mid), "period_min": q["median"], "q25": q["q25"], "q75": q["q75"]})
         ok = (speed_ok & (maps.coherence[i + 1] >= options.min_coherence) & np.isfinite(pw)
               & np.isfinite(maps.speed[i + 1]) & kernel_in_one_territory(cs.window_labels[i], sigma_px=sigma_px))
+        speed_w[i] = np.where(ok, maps.speed[i + 1], np.nan)
         for g in range(nreg * nreg):
             m = ok & (region == g)
             if m.sum() < 10:
@@ -257,6 +269,12 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         cs, maps=maps, valid=valid_field, windows=windows, trim=trim, factor=factor, cal=cal, merge_px=merge_px,
         spiral_cores=spiral_cores, frame_ok=frame_ok,
     )
+    conf = confidence.headline(period_w=period_w, speed_w=speed_w,
+                               block=confidence.block_px(wavelength_px=wl_px, sigma_px=sigma_px),
+                               dt_min=dt_min, to_um_per_min=to_um_per_min, px_um=px_b)
+    conf["spiral_cores"] = confidence.cores(spiral_cores, tracking.tracks_in_um(
+        pers_rec, pixel_size_um=px, frame_interval_s=dt_s))
+    conf["centres"] = confidence.territories(centres, terr_course)
     summary = {
         "schema_version": 1,
         "source": None,  # filled by the caller that knows the file
@@ -269,6 +287,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "centres": centres,
         "warnings": list(warnings),
         # extra keys
+        "confidence": conf,
         "centres_per_cm2": (len(centres) / (field_px * px_b * px_b * 1e-8)) if field_px > 0 else None,
         # candidates that did not earn a place among the centres, with the reason (not counted above)
         "rejected_centres": [

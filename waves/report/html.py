@@ -162,15 +162,24 @@ _QUANTITIES = (
 
 def _summary_section(s: Mapping) -> str:
     rows = []
+    conf = s.get("confidence") or {}
     for key, label, unit in _QUANTITIES:
         q = s.get(key)
+        ci = (conf.get(key) or {}).get("ci95") or [None, None]
         if q:
-            rows.append([label, q.get("median"), q.get("q25"), q.get("q75"), q.get("n"), unit])
+            rows.append([label, q.get("median"), ci[0], ci[1], q.get("q25"), q.get("q75"), q.get("n"), unit])
         elif key in s:
-            rows.append([label, None, None, None, 0, unit + " (not measured)"])
-    body = _table(["quantity", "median", "lower quartile", "upper quartile", "n (pixels)", "unit"], rows,
-                  numeric=[False, True, True, True, True, False])
+            rows.append([label, None, None, None, None, None, 0, unit + " (not measured)"])
+    body = _table(["quantity", "median", "95 % interval, low", "95 % interval, high", "lower quartile",
+                   "upper quartile", "n (pixels)", "unit"], rows,
+                  numeric=[False, True, True, True, True, True, True, False])
+    if conf.get("method"):
+        body += f"<p>Intervals: {html.escape(conf['method'])}; blocks of {conf['block_um']:.0f} um.</p>"
     extra = []
+    det = s.get("detection")
+    if det:
+        extra.append(["field beating red noise (detection)", 100.0 * float(det["significant_fraction"]),
+                      f"% of the cell field, at the {100 * det['level']:.0f} % level"])
     if s.get("dominant_period_min") is not None:
         extra.append(["dominant period (spectral peak)", s["dominant_period_min"], "min"])
     extra.append(["persistent spiral cores", len(s.get("spiral_cores") or []), "count"])
