@@ -54,7 +54,7 @@ def _problems(kind, rec, a) -> list[str]:
 
 # Waves bending round the cleared strip (cut out of the cell field, reaching the frame's border)
 # made an extra small "target" centre beside it on 3 of these 12 fields (spiral 0/5, 0/15, 1/15);
-# thin border holes now count as holes for that check (waves.analyse.summary._without_hole_echoes)
+# thin border holes now count as holes for that check (waves.analyse.centre_rules.without_hole_echoes)
 @pytest.mark.parametrize("speed", [5.0, 15.0])
 @pytest.mark.parametrize("seed", [0, 1, 2])
 @pytest.mark.parametrize("kind", ["spiral", "target"])

@@ -87,7 +87,7 @@ def test_tiny_target_territories_are_rejected_with_their_reason():
     # a known partition (synthetic): centre 1 holds the field but a 3-pixel patch, which is
     # centre 2's in the whole movie and in the one window; a quarter-wavelength disc at a
     # 20-px wavelength is 79 px, so centre 2 goes, its pixels to centre 1, with the reason kept
-    from waves.analyse.summary import _without_tiny_territories
+    from waves.analyse.centre_rules import without_tiny_territories
     from waves.measure.centres import CentreSet
 
     labels = np.ones((30, 30), dtype=np.int32)
@@ -100,8 +100,8 @@ def test_tiny_target_territories_are_rejected_with_their_reason():
                                      "n_pixels": np.array([897, 3])},
         window_labels=labels[None].copy(),
     )
-    out = _without_tiny_territories(cs, wl_px=20.0)
+    out = without_tiny_territories(cs, wl_px=20.0)
     assert list(out.centres["id"]) == [1] and (out.labels == 1).all() and (out.window_labels == 1).all()
     (kind, row, col, n, reason), = out.rejected
     assert (kind, row, col, n) == ("target", 0.0, 1.0, 3) and "quarter wavelength" in reason
-    assert _without_tiny_territories(cs, wl_px=2.0).rejected == ()  # a disc under one pixel: both stay
+    assert without_tiny_territories(cs, wl_px=2.0).rejected == ()  # a disc under one pixel: both stay

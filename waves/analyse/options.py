@@ -44,7 +44,7 @@ class AnalysisOptions:
     smooth_sigma_um: float | None = None  # None: wavelength / 12, from the first look
     min_amplitude: float | None = None  # signal floor of the amplitude map; None: Otsu
     min_coherence: float = 0.8  # speed only where the wave direction is steady
-    persistent_periods: float = 1.0  # a core must live this many periods
+    persistent_periods: float = 2.0  # a core must live this many periods (false ones along a cleared strip: 1.5-2)
     window_periods: float = 3.0  # period time course: window length in periods
     memory_budget_mb: float = 400.0
     workers: int = 2

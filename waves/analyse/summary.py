@@ -11,10 +11,15 @@ import scipy.ndimage
 
 from waves import __version__, preprocess
 from waves.analyse import confidence
+from waves.analyse.centre_rules import (
+    without_edge_entries,
+    without_hole_echoes,
+    without_tiny_territories,
+)
 from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
 from waves.analyse.segments import arrivals_by_stretch
 from waves.analyse.strips import _detect_and_track, _Maps
-from waves.measure.centres import emission_intervals, track_centres, without_centres
+from waves.measure.centres import emission_intervals, track_centres
 from waves.measure.period import quartiles
 from waves.measure.significance import fill_holes_smaller_than
 from waves.measure.speed import (
@@ -65,55 +70,6 @@ def _signal_without_empty_holes(amp, filled, options, core_tracks):
         keep[np.unique(window)] = True
     keep[0] = False
     return strict | keep[holes]
-
-
-def _without_hole_echoes(cs, holey, *, margin_px, merge_px, wl_px, min_hole_px):
-    """`cs` without the small target centres next to a hole inside the cell field (an
-    obstacle, a cleared strip): waves bending round the hole's end look like a source
-    there (specks and other holes the smoothing bridges do not count).  Next to: within the measuring margin plus the centres' merge radius; small: a
-    territory under a disc of half a wavelength.  Wide holes that reach the frame's border (a
-    dish edge) do not count: a real pacemaker by the dish edge keeps its centre (measured:
-    a 0.07-share "target" beside a relay field's obstacle; one by a dish edge is real); thin
-    ones (a cleared strip from the border in, at most a quarter wavelength from the cells
-    everywhere) do (measured: 0.05-share "targets" beside a streaming field's strip)."""
-    if holey.all() or not len(cs.centres["id"]) or not np.isfinite(wl_px):
-        return cs
-    lab, n = scipy.ndimage.label(~holey)
-    border = np.unique(np.concatenate([lab[0], lab[-1], lab[:, 0], lab[:, -1]]))
-    sizes = np.bincount(lab.ravel(), minlength=n + 1)
-    # a hole that reaches the border counts when it is thin (a cleared strip, a scratch: no
-    # point of it farther than a quarter wavelength from the cells), not when wide (a dish edge)
-    depth = scipy.ndimage.maximum(scipy.ndimage.distance_transform_edt(lab > 0), lab, np.arange(n + 1))
-    thin = np.asarray(depth) <= 0.25 * wl_px
-    counts = ~np.isin(np.arange(n + 1), border) | thin
-    # specks and dead pixels (holes the normalised convolution bridges) do not count either
-    inner = (lab > 0) & counts[lab] & (sizes[lab] >= max(int(min_hole_px), 1))
-    if not inner.any():
-        return cs
-    ny, nx = holey.shape
-    r = np.clip(np.rint(cs.centres["row"]).astype(int), 0, ny - 1)
-    c = np.clip(np.rint(cs.centres["col"]).astype(int), 0, nx - 1)
-    near = scipy.ndimage.distance_transform_edt(~inner)[r, c] <= max(margin_px, 1.0) + merge_px
-    small = cs.centres["n_pixels"] < np.pi * (0.5 * wl_px) ** 2
-    return without_centres(cs, (cs.centres["kind"] == "target") & near & small,
-                           reason="beside a hole in the cell field: waves bending round it, not a source")
-
-
-def _without_tiny_territories(cs, *, wl_px):
-    """`cs` without target centres whose territory (whole movie and every window)
-    stays under a disc of a quarter wavelength: a source holds at least the ring
-    of its first wave (issue 13 measured zero-territory "targets" on the image edge of
-    real-looking fields).  Spirals keep their place: the core is the evidence."""
-    if not len(cs.centres["id"]) or not np.isfinite(wl_px):
-        return cs
-    most = cs.centres["n_pixels"].astype(np.float64).copy()
-    wa = cs.window_areas
-    for i, cid in enumerate(cs.centres["id"]):
-        sel = wa["centre_id"] == cid
-        if sel.any():
-            most[i] = max(most[i], float(wa["n_pixels"][sel].max()))
-    return without_centres(cs, (cs.centres["kind"] == "target") & (most < np.pi * (0.25 * wl_px) ** 2),
-                           reason="territory smaller than a disc of a quarter wavelength in every window")
 
 
 def _rejected_table(rejected, *, factor: int, px: float) -> dict:
@@ -203,8 +159,9 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         # zeroed (amplitude exactly 0); given to the nearest territory, never measured
         fill=in_field & (~covered | (amp == 0)),
     )
-    cs = _without_hole_echoes(cs, holey, margin_px=margin_px, merge_px=merge_px, wl_px=wl_px, min_hole_px=small)
-    cs = _without_tiny_territories(cs, wl_px=wl_px)
+    cs = without_hole_echoes(cs, holey, margin_px=margin_px, merge_px=merge_px, wl_px=wl_px, min_hole_px=small)
+    cs = without_tiny_territories(cs, wl_px=wl_px)
+    cs = without_edge_entries(cs, maps.direction[0], valid_field, wl_px=wl_px, edge_px=merge_px)
     speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
 
     to_um_per_min = px_b / dt_min
