@@ -24,7 +24,9 @@ from waves.measure.significance import DEFAULT_LEVEL, PeakTest, peak_test, signi
 # red-noise and streaming texture; 20 seeds each): the largest chance fraction was
 # reported in the closing note of issue 13; wave fields pass with 0.6-1.0.
 MIN_SIGNIFICANT_FRACTION = 0.2
-MAX_TESTED_PIXELS = 40_000  # larger grids are tested on every other pixel (neighbours are alike)
+# larger grids are tested on every n-th pixel in each direction, the map filled from them:
+# neighbours within the smoothing length are alike (the grid has ~24 px per wavelength)
+MAX_TESTED_PIXELS = 6_000
 # periods the movie holds fewer times than this are not tested: the measurement needs them
 # (waves.analyse.pipeline: 3.5 periods), and a red continuum high-passed by the cleaning has its
 # hump there, where a short spectrum has too few bins to tell a hump from a peak (measured:
@@ -84,23 +86,29 @@ def significance_map(movie: _Movie, band: tuple[float, float], *, level: float =
                      rows_per_chunk: int = 16, detrend_degree: int | None = None) -> tuple[np.ndarray, np.ndarray, PeakTest | None]:
     """(significant, peak_ratio, last chunk's test) maps over the movie's grid."""
     nt, ny, nx = movie.shape
-    stride = 1 if ny * nx <= MAX_TESTED_PIXELS else 2
+    stride = max(1, int(np.ceil(np.sqrt(ny * nx / MAX_TESTED_PIXELS))))
     sig = np.zeros((ny, nx), dtype=bool)
     ratio = np.full((ny, nx), np.nan, dtype=np.float32)
     last = None
-    rows = list(range(0, ny, stride))
+    o = (stride - 1) // 2  # each tested pixel stands for the stride x stride block round it
+    rows = list(range(o, ny, stride))
     for i in range(0, len(rows), rows_per_chunk):
         rr = rows[i : i + rows_per_chunk]
-        x = np.stack([movie.rows(r, r + 1)[:, 0, ::stride] for r in rr], axis=1)
+        x = np.stack([movie.rows(r, r + 1)[:, 0, o::stride] for r in rr], axis=1)
         last = peak_test(x, band, level=level, detrend_degree=detrend_degree)
         flat = np.asarray(x).std(axis=0) == 0  # no data (outside the cell field): not tested
-        s = last.significant & ~flat
-        q = np.where(flat, np.nan, last.ratio).astype(np.float32)
+        s = np.repeat(last.significant & ~flat, stride, axis=1)[:, :nx]
+        q = np.repeat(np.where(flat, np.nan, last.ratio).astype(np.float32), stride, axis=1)[:, :nx]
         for j, r in enumerate(rr):
-            for dr in range(stride):
-                if r + dr < ny:
-                    sig[r + dr] = np.repeat(s[j], stride)[:nx]
-                    ratio[r + dr] = np.repeat(q[j], stride)[:nx]
+            lo, hi = r - o, min(ny, r - o + stride)
+            sig[lo:hi, : s.shape[1]] = s[j]
+            ratio[lo:hi, : q.shape[1]] = q[j]
+    if rows and rows[-1] - o + stride < ny:  # rows past the last block: as the last block
+        sig[rows[-1] - o + stride :] = sig[rows[-1] - o + stride - 1]
+        ratio[rows[-1] - o + stride :] = ratio[rows[-1] - o + stride - 1]
+    if s.shape[1] < nx:
+        sig[:, s.shape[1] :] = sig[:, s.shape[1] - 1 : s.shape[1]]
+        ratio[:, s.shape[1] :] = ratio[:, s.shape[1] - 1 : s.shape[1]]
     return sig, ratio, last
 
 

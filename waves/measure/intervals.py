@@ -12,6 +12,8 @@ percentile interval of that statistic (Efron & Tibshirani 1993, ch. 13).
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 
 N_BOOT = 2000
@@ -60,12 +62,15 @@ def two_way_interval(cells: np.ndarray, *, n_boot: int = N_BOOT, level: float = 
         return None
     rng = np.random.default_rng(seed)
     stats = np.empty(n_boot)
-    for k in range(n_boot):
-        wi = rng.integers(0, nw, nw)
-        bi = rng.integers(0, nb, nb)
-        v = cells[np.ix_(wi, bi)]
-        v = v[np.isfinite(v)]
-        stats[k] = np.median(v) if v.size else np.nan
+    chunk = max(1, int(2e6 // (nw * nb)))  # draws at a time: a few MB of gathered cells
+    for k0 in range(0, n_boot, chunk):
+        k1 = min(n_boot, k0 + chunk)
+        wi = rng.integers(0, nw, (k1 - k0, nw))
+        bi = rng.integers(0, nb, (k1 - k0, nb))
+        v = cells[wi[:, :, None], bi[:, None, :]].reshape(k1 - k0, -1)
+        with np.errstate(all="ignore"), warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # a draw of empty cells only: NaN
+            stats[k0:k1] = np.nanmedian(v, axis=1)
     stats = stats[np.isfinite(stats)]
     if stats.size < n_boot // 2:
         return None
