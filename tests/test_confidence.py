@@ -58,7 +58,7 @@ def test_two_way_interval_needs_units():
 @pytest.mark.slow
 def test_intervals_hold_the_truth_in_90_to_99_percent_of_fields():
     # issue 13: over >= 50 seeded fields with known truth the 95 % interval of period and
-    # speed holds the truth in 90-99 % of them (measured when written: 95.0 % and 96.7 %
+    # speed holds the truth in 90-99 % of them (measured when written: 96.7 % and 96.7 %
     # of 60 fields)
     hp = hs = 0
     n_fields = 60
