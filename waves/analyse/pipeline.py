@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import pathlib
 import time
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -90,6 +91,15 @@ def analyse_movie(
 
     t0 = time.perf_counter()
     block = max(1, min(64, int(16e6 // max(ny * nx * 4, 1))))
+    # the bad-pixel scan needs neither the drift nor the grid: with two workers it runs on a
+    # second thread beside the drift estimate and the first look (numpy, scipy.ndimage and
+    # skimage release the GIL; nothing compiled in parallel runs there); only numpy arrays and
+    # memory maps are read from two threads at once
+    scan = None
+    if int(options.workers) > 1 and isinstance(data, np.ndarray):
+        pool = ThreadPoolExecutor(max_workers=1)
+        scan = pool.submit(cell_field.scan, data, pixel_size_um=cal.pixel_size_um)
+        pool.shutdown(wait=False)
     # stage drift, on every run; the first look sees frames put back and differenced
     drift_plan = drift_auto.plan(data, options.register)
     timings["drift_estimate_s"] = time.perf_counter() - t0
@@ -108,7 +118,8 @@ def analyse_movie(
     nyb, nxb = ny // factor, nx // factor
     t_field = time.perf_counter()
     fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um,
-                            real_frames=None if tb is None else tb.recorded & ~tb.excluded)
+                            real_frames=None if tb is None else tb.recorded & ~tb.excluded,
+                            bad=None if scan is None else scan.result())
     drift = drift_auto.on_grid(drift_plan, factor=factor, shape_b=(nyb, nxb), frame_interval_min=dt_min,
                                sigma_px=sigma_px)
     warnings += drift.warnings
