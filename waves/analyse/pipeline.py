@@ -91,20 +91,24 @@ def analyse_movie(
 
     t0 = time.perf_counter()
     block = max(1, min(64, int(16e6 // max(ny * nx * 4, 1))))
-    # the bad-pixel scan needs neither the drift nor the grid: with two workers it runs on a
-    # second thread beside the drift estimate and the first look (numpy, scipy.ndimage and
-    # skimage release the GIL; nothing compiled in parallel runs there); only numpy arrays and
-    # memory maps are read from two threads at once
-    scan = None
+    look_lag = drift_auto.look_lag_frames(options.period_band_min, dt_min, nt)
+    # the first look on the frames as recorded and the bad-pixel scan need neither the drift
+    # estimate nor the grid: with two workers they run on a second thread beside the estimate
+    # (numpy, scipy.ndimage and skimage release the GIL; nothing compiled runs in parallel
+    # there); only numpy arrays and memory maps are read from two threads at once
+    scan = look_ahead = None
     if int(options.workers) > 1 and isinstance(data, np.ndarray):
         pool = ThreadPoolExecutor(max_workers=1)
+        look_ahead = pool.submit(_wavelength_look, data, lag_frames=look_lag, compiled=False)
         scan = pool.submit(cell_field.scan, data, pixel_size_um=cal.pixel_size_um)
         pool.shutdown(wait=False)
     # stage drift, on every run; the first look sees frames put back and differenced
     drift_plan = drift_auto.plan(data, options.register)
     timings["drift_estimate_s"] = time.perf_counter() - t0
-    lam = _wavelength_look(data, shifts_px=drift_plan.look_shifts_px,
-                           lag_frames=drift_auto.look_lag_frames(options.period_band_min, dt_min, nt))
+    if look_ahead is not None and drift_plan.look_shifts_px is None:
+        lam = look_ahead.result()
+    else:
+        lam = _wavelength_look(data, shifts_px=drift_plan.look_shifts_px, lag_frames=look_lag)
     if options.analysis_bin is not None:
         factor = int(options.analysis_bin)
     else:
@@ -143,7 +147,7 @@ def analyse_movie(
             t_bright = time.perf_counter()
             bright = brightness_pass.estimate(
                 movie, mean_b, block=block, slow_frames=options.period_band_min[1] / dt_min, cell_mask=cells.mask,
-                lag_frames=drift_auto.look_lag_frames(options.period_band_min, dt_min, nt))
+                lag_frames=look_lag)
             timings["brightness_s"] = time.perf_counter() - t_bright
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
