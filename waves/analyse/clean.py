@@ -127,6 +127,18 @@ def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=No
     return (mean / movie.shape[0]).astype(np.float32)
 
 
+def in_threads(fn, items, workers: int) -> list:
+    """[fn(item) for item in items], on `workers` threads when more than one
+    (for work in numpy and scipy.ndimage, which release the GIL; results in order)."""
+    items = list(items)
+    if int(workers) <= 1 or len(items) <= 1:
+        return [fn(item) for item in items]
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=int(workers)) as pool:
+        return list(pool.map(fn, items))
+
+
 def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,
            block: int, bar, workers: int, notes: list, brightness=None,
            field_mask: np.ndarray | None = None, shifts: np.ndarray | None = None) -> None:

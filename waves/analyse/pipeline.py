@@ -259,7 +259,8 @@ def analyse_movie(
             valid=valid_phase,
             pad_frames=pad,
         )
-        _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor)
+        _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor,
+                                workers=int(options.workers))
         amplitude_units = "counts"
         if float(mean_b.max()) > 0:  # fractional modulation: the signal floor must not follow the illumination
             dish = preprocess.dish_mask(mean_b)

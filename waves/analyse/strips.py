@@ -9,7 +9,7 @@ import numba
 import numpy as np
 
 from waves import preprocess
-from waves.analyse.clean import _Movie, _progress
+from waves.analyse.clean import _Movie, _progress, in_threads
 from waves.analyse.options import DETREND_DEGREE, FIT_RADIUS_PX, HALO_PX, MAX_SMOOTHING_CORRECTION
 from waves.analyse.segments import (
     combine_stretches,
@@ -197,7 +197,7 @@ def noise_amplitude_factor(n_frames: int, passband) -> float:
     return float(np.sqrt(0.25 * np.pi * np.sum(w * w) / int(n_frames)))
 
 
-def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int) -> None:
+def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int, workers: int = 1) -> None:
     """Undo the curvature bias the spatial smoothing (and the binning's box
     average) puts into the phase speeds, window by window, and into the
     activation-fit speeds (with the whole-movie factor), in place; drop
@@ -216,7 +216,8 @@ def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int) -> Non
     var_col = box + (preprocess.smoothing_variance_px2(nx, sigma_px=sigma_px) if sigma_px > 0.3 else 0.0)
     if ny < 3 or nx < 3 or not (np.any(var_row > 0) or np.any(var_col > 0)):
         return
-    for w in range(maps.speed.shape[0]):
+
+    def one(w: int) -> None:  # window w's maps only: the windows can go to threads (numpy, ndimage)
         with np.errstate(invalid="ignore", divide="ignore"):
             k = maps.omega[w].astype(np.float64) / maps.speed[w]
         kx = k * np.cos(maps.direction[w])
@@ -228,6 +229,8 @@ def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int) -> Non
         maps.speed[w] = np.where(ok, maps.speed[w] / np.where(ok, f, 1.0), np.nan)
         if w == 0:  # arrival times come from the same smoothed phase: the same bias
             maps.fit_speed[:] = np.where(ok, maps.fit_speed / np.where(ok, f, 1.0), np.nan)
+
+    in_threads(one, range(maps.speed.shape[0]), workers)
 
 
 def _detect_and_track(charges, *, signal, n_frames, period_frames, frame_ok=None):
