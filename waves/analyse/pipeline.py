@@ -152,7 +152,7 @@ def analyse_movie(
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, resampler=resampler,
-                           weight=fplan.weight, coverage=fplan.coverage, stats=fplan.stats)
+                           weight=fplan.weight, coverage=fplan.coverage, stats=fplan.stats, workers=int(options.workers))
         t_field = time.perf_counter()
         cells = cell_field.find(fplan, mean_b, pixel_size_um=px_um,
                                 wavelength_px=lam / factor if lam is not None else None)
