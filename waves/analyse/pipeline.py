@@ -162,7 +162,7 @@ def analyse_movie(
             t_bright = time.perf_counter()
             bright = brightness_pass.estimate(
                 movie, mean_b, block=block, slow_frames=options.period_band_min[1] / dt_min, cell_mask=cells.mask,
-                lag_frames=look_lag)
+                lag_frames=look_lag, workers=int(options.workers))
             timings["brightness_s"] = time.perf_counter() - t_bright
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
