@@ -20,7 +20,7 @@ import numpy as np
 import scipy.fft as sfft
 import scipy.ndimage as ndi
 
-from waves.preprocess.binning import bin_frames_in_order
+from waves import preprocess
 
 # Correct when the drift exceeds this fraction of an analysis-grid pixel.  The
 # phase gradient (speed, direction) and the charge loops compare neighbouring
@@ -80,28 +80,18 @@ def _texture(frame: np.ndarray) -> np.ndarray:
     return img - ndi.gaussian_filter(img, TEXTURE_SIGMA_PX, truncate=3.0)
 
 
-_SMALL_INTS = (np.uint8, np.int8, np.uint16, np.int16)
+# recorded types whose values float32 holds exactly: binned as read (the kernel sums in float64)
+_EXACT_IN_FLOAT32 = (np.uint8, np.int8, np.uint16, np.int16, np.float32)
 
 
 def _frames(data, idx, eb: int) -> np.ndarray:
-    """Frames `idx` as float32, binned by `eb`: the values of
-    `preprocess.bin_frames` on the float32 frames, computed in numpy (no
-    compiled parallel kernel, so the estimate can run beside another thread
-    that launches them): 8- and 16-bit frames by exact integer block sums,
-    others with the kernel's float64 sums in the kernel's order."""
-    raw = np.asarray(data[np.asarray(idx)])
-    if eb == 1:
-        return raw.astype(np.float32)
-    if raw.dtype in _SMALL_INTS:
-        n, ny, nx = raw.shape
-        by, bx = ny // eb, nx // eb
-        blocks = raw[:, : by * eb, : bx * eb].reshape(n, by, eb, bx, eb)
-        total = np.zeros((n, by, bx), dtype=np.int64 if eb > 128 else np.int32)
-        for di in range(eb):
-            for dj in range(eb):
-                total += blocks[:, :, di, :, dj]
-        return (total * (1.0 / (eb * eb))).astype(np.float32)
-    return bin_frames_in_order(raw.astype(np.float32, copy=False), eb)
+    raw = data[np.asarray(idx)]
+    if eb > 1 and raw.dtype in _EXACT_IN_FLOAT32:
+        raw = np.asarray(raw)
+        raw.flags.writeable = False  # the binning pass's compiled variant (memory-mapped frames)
+        return preprocess.bin_frames(raw, eb)
+    raw = np.asarray(raw, dtype=np.float32)
+    return preprocess.bin_frames(raw, eb) if eb > 1 else raw
 
 
 def _median_frames(frames: np.ndarray) -> np.ndarray:

@@ -27,20 +27,10 @@ from waves.analyse.summary import _empty_result, _grid, _summarise
 from waves.analyse.timeaxis import GAP_MIN_FRAMES, margin_record, recording_block, time_axis
 from waves.errors import InputError, WavesError
 from waves.phase.analytic import passband_from_periods
-from waves.preprocess import binning
 from waves.preprocess.texture import correct_streaming
 from waves.units import Calibration
 
 # --------------------------------------------------------------------------- main entry
-
-
-def _warm_up(data: np.ndarray) -> None:
-    """Load the binning pass's compiled kernel on a worker thread; a type
-    the kernel does not take is left to the binning pass to report."""
-    try:
-        binning.warm_up(data.dtype, writeable=bool(data.flags.writeable))
-    except Exception:  # noqa: BLE001 - only a head start: the binning pass meets any real problem
-        pass
 
 
 def analyse_movie(
@@ -102,24 +92,19 @@ def analyse_movie(
     t0 = time.perf_counter()
     block = max(1, min(64, int(16e6 // max(ny * nx * 4, 1))))
     look_lag = drift_auto.look_lag_frames(options.period_band_min, dt_min, nt)
-    # The drift estimate runs in numpy.  With two workers a second thread meanwhile loads the
-    # compiled binning kernel (numba's set-up), then takes the first look on the frames as
-    # recorded and scans for bad pixels (neither needs the drift estimate nor the grid; numpy,
-    # scipy.ndimage and skimage release the GIL).  Parallel compiled kernels are launched from
-    # one thread at a time: the main thread launches none before the warm-up is done.  Only
-    # numpy arrays and memory maps are read from two threads at once.
-    warm = scan = look_ahead = None
+    # the first look on the frames as recorded and the bad-pixel scan need neither the drift
+    # estimate nor the grid: with two workers they run on a second thread beside the estimate
+    # (numpy, scipy.ndimage and skimage release the GIL; nothing compiled runs in parallel
+    # there); only numpy arrays and memory maps are read from two threads at once
+    scan = look_ahead = None
     if int(options.workers) > 1 and isinstance(data, np.ndarray):
         pool = ThreadPoolExecutor(max_workers=1)
-        warm = pool.submit(_warm_up, data)
         look_ahead = pool.submit(_wavelength_look, data, lag_frames=look_lag, compiled=False)
         scan = pool.submit(cell_field.scan, data, pixel_size_um=cal.pixel_size_um)
         pool.shutdown(wait=False)
     # stage drift, on every run; the first look sees frames put back and differenced
     drift_plan = drift_auto.plan(data, options.register)
     timings["drift_estimate_s"] = time.perf_counter() - t0
-    if warm is not None:
-        warm.result()
     if look_ahead is not None and drift_plan.look_shifts_px is None:
         lam = look_ahead.result()
     else:

@@ -59,15 +59,6 @@ def bin_frames_numpy(frames, factor: int) -> np.ndarray:
     return blocks.mean(axis=(nd - 3, nd - 1), dtype=np.float64).astype(np.float32)
 
 
-def warm_up(dtype, *, writeable: bool) -> None:
-    """Load the compiled binning kernel for frames of `dtype` (numba's cache;
-    the first load also sets up numba's compiler context, ~0.3 s), so that
-    it can be done on another thread while the main thread works in numpy."""
-    frames = np.zeros((1, 2, 2), dtype=dtype)
-    frames.flags.writeable = bool(writeable)
-    bin_frames(frames, 2)
-
-
 def bin_frames_in_order(frames, factor: int) -> np.ndarray:
     """`bin_frames` in numpy with the kernel's arithmetic in the kernel's order
     (the same float32 values), for threads other than the one that runs the
