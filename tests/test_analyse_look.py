@@ -68,3 +68,19 @@ def test_noise_sd_and_band_noise_gain_against_white_noise():
     z = analytic_signal(x.copy(), passband=band)
     measured = float(np.abs(z[60:-60]).mean()) / sigma
     assert measured == pytest.approx(noise_amplitude_factor(NT, band), rel=0.03)
+
+
+def test_compiled_noise_sd_and_sparse_nonzero_equal_their_numpy_forms():
+    from waves.analyse.strips import _noise_sd_numpy, _sparse_nonzero
+
+    rng = np.random.default_rng(5)
+    x = (100 + 30 * rng.normal(0, 1, (40, 9, 13))).astype(np.float32)
+    for movie in (x, x[:, 2:7], x[:3]):
+        assert np.array_equal(_noise_sd(movie), _noise_sd_numpy(movie))
+    for shape in [(30, 7, 11), (4, 3, 2), (0, 5, 5)]:
+        q = np.zeros(shape, dtype=np.int8)
+        if q.size:
+            q.flat[rng.integers(0, q.size, q.size // 5 + 1)] = rng.choice([-2, -1, 1, 2], q.size // 5 + 1)
+        for view in (q, q[:, : max(shape[1] - 1, 0)]):
+            got, want = _sparse_nonzero(view), np.nonzero(view)
+            assert all(np.array_equal(a, b) for a, b in zip(got, want, strict=True))

@@ -643,3 +643,18 @@ def test_bin_kernel_matches_numpy_twin(dtype, factor):
     twin = bin_frames_numpy(block, factor)
     assert compiled.dtype == np.float32 and compiled.shape == twin.shape
     np.testing.assert_allclose(compiled, twin, rtol=1e-6)
+
+
+@pytest.mark.parametrize("dtype", [np.uint8, np.uint16, np.float32, np.float64])
+@pytest.mark.parametrize("factor", [2, 3])
+def test_bin_frames_in_order_equals_the_kernel_exactly(dtype, factor):
+    # the numpy binning used off the main thread must give the compiled kernel's values bit for bit
+    from waves.preprocess.binning import bin_frames_in_order
+
+    rng = np.random.default_rng(12)
+    block = (rng.random((9, 23, 31)) * 1000).astype(dtype)
+    for frames in (block, block[0]):
+        compiled = bin_frames(frames, factor)
+        ordered = bin_frames_in_order(frames, factor)
+        assert ordered.dtype == np.float32 and ordered.shape == compiled.shape
+        assert np.array_equal(ordered, compiled)

@@ -8,6 +8,7 @@ last: its presence means the folder is complete.
 
 from __future__ import annotations
 
+import concurrent.futures
 import csv
 import math
 import pathlib
@@ -95,11 +96,12 @@ def read_table_csv(path) -> dict:
     return cols
 
 
-def source_record(path, stack) -> dict:
-    """The summary's `source` block: {path, sha256, shape_tyx, dtype}."""
+def source_record(path, stack, sha256: str | None = None) -> dict:
+    """The summary's `source` block: {path, sha256, shape_tyx, dtype};
+    `sha256` is the file's digest when already known."""
     return {
         "path": str(path),
-        "sha256": io.file_sha256(path),
+        "sha256": io.file_sha256(path) if sha256 is None else sha256,
         "shape_tyx": list(stack.shape_tyx),
         "dtype": str(stack.data.dtype),
     }
@@ -146,6 +148,11 @@ def analyse_file(
         times_csv=times_csv,
     )
     mask = _read_cell_mask(cell_mask, stack, bin) if cell_mask is not None else None
+    # the digest for summary['source'] is taken on a second core while the analysis runs
+    # (hashlib works without the interpreter lock)
+    digest = concurrent.futures.ThreadPoolExecutor(max_workers=1)
+    sha256 = digest.submit(io.file_sha256, path)
+    digest.shutdown(wait=False)
     scratch = None
     if out is not None:
         scratch = pathlib.Path(out)
@@ -165,7 +172,7 @@ def analyse_file(
     if rec is not None:
         rec["times_origin"] = stack.times_origin  # the file's source ('ome', ...), 'csv' or 'nominal'
     _to_file_coordinates(analysis, stack)
-    analysis.summary["source"] = source_record(path, stack)
+    analysis.summary["source"] = source_record(path, stack, sha256.result())
     # how the stack was read, so pictures can re-read the same frames
     if isinstance(frames, slice):
         sel = [frames.start, frames.stop, frames.step]

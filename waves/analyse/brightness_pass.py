@@ -12,6 +12,7 @@ frame, so this equals cleaning an interpolated raw frame).
 from __future__ import annotations
 
 import dataclasses
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -34,12 +35,12 @@ RESIDUAL_SIGMA_PX = 2.0  # analysis-grid px: above the cell grain (1-2 px), far 
 
 
 def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: float,
-             cell_mask: np.ndarray | None = None, lag_frames: int = 4) -> pb.Brightness | None:
+             cell_mask: np.ndarray | None = None, lag_frames: int = 4, workers: int = 1) -> pb.Brightness | None:
     """Per-frame gain and offset of the binned movie against its temporal mean,
     over the dish (the dark surround would only add noise to the fit); None
     when the mean image has no light (background-subtracted data: a gain
     means nothing there).  `lag_frames`: about a quarter of the waves' period
-    (`_wave_change`)."""
+    (`_wave_change`, on a second thread beside the fits when `workers` > 1)."""
     if not float(mean_b.max()) > 0:
         return None
     field = preprocess.dish_mask(mean_b)
@@ -57,6 +58,11 @@ def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: floa
     order = np.sort(ref)
     n = order.size
     q0, q1 = int(QQ_RANGE[0] * n), max(int(QQ_RANGE[1] * n), int(QQ_RANGE[0] * n) + 2)
+    change = None
+    if int(workers) > 1:  # numpy and scipy.ndimage: beside the fits below
+        pool = ThreadPoolExecutor(max_workers=1)
+        change = pool.submit(_wave_change, movie, idx, lag=lag_frames)
+        pool.shutdown(wait=False)
     gains, offsets = [], []
     for t0 in range(0, movie.shape[0], block):  # block by block: memory bounded by the block
         b = movie.frames(t0, t0 + block)
@@ -71,7 +77,7 @@ def estimate(movie: _Movie, mean_b: np.ndarray, *, block: int, slow_frames: floa
         f"Huber regression of each frame's sorted values on the temporal mean's ({100 * QQ_RANGE[0]:g}-"
         f"{100 * QQ_RANGE[1]:g} % quantiles)"))
     structure = 1.4826 * float(np.median(np.abs(ref - np.median(ref))))
-    waves = _wave_change(movie, idx, lag=lag_frames)
+    waves = _wave_change(movie, idx, lag=lag_frames) if change is None else change.result()
     slow = bright.gain[~bright.flicker] if (~bright.flicker).any() else bright.gain
     swing = float(slow.max() / slow.min()) if float(slow.min()) > 0 else np.inf
     if swing > MAX_LAMP_SWING:

@@ -15,10 +15,22 @@ from waves.errors import InputError
 # --------------------------------------------------------------------------- helpers
 
 
+class _NoBar:
+    """What a disabled progress bar does: nothing (tqdm.auto costs ~0.05 s to import)."""
+
+    def update(self, n: int = 1) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
 def _progress(total: int, desc: str, enabled: bool):
+    if not enabled:
+        return _NoBar()
     from tqdm.auto import tqdm
 
-    return tqdm(total=total, desc=desc, unit="block", disable=not enabled, leave=False)
+    return tqdm(total=total, desc=desc, unit="block", disable=False, leave=False)
 
 
 class _Movie:
@@ -88,43 +100,70 @@ def clean_buffer(shape: tuple[int, int, int], *, folder: pathlib.Path | None = N
 
 
 def _bin_pass(data, *, factor: int, movie: _Movie, block: int, bar, resampler=None, weight=None, coverage=None,
-              stats=None) -> np.ndarray:
+              stats=None, workers: int = 1) -> np.ndarray:
     """Read the recording once: bin every frame block into `movie`, refuse
     non-finite or flat movies, and return the temporal-mean image (binned).
     With a `waves.preprocess.GridResampler` the binned frames are put on its
     uniform time grid (`movie` has the grid's frames) as they are read.
     With a recorded-grid `weight` (good, in-field pixels) and its binned
     `coverage`, bins average only those pixels; `stats` (a
-    preprocess.FieldStats) gathers the cell field's statistics."""
+    preprocess.FieldStats) gathers the cell field's statistics; with
+    `workers` > 1 (and no resampler) on a second thread, block after block
+    in order, while the next block is read and binned."""
     nt = data.shape[0]
     mean = np.zeros(movie.shape[1:], dtype=np.float64)
     lo, hi = np.inf, -np.inf
-    for t0 in range(0, nt, block):
-        raw = np.asarray(data[t0 : t0 + block])
-        if weight is not None:  # cell field: only good, in-field recorded pixels
-            b = preprocess.bin_weighted(raw, factor, weight, coverage)
-        else:
-            b = preprocess.bin_frames(raw, factor) if factor > 1 else raw.astype(np.float32)
-        if not np.isfinite(b).all():
-            bad = np.flatnonzero(~np.isfinite(b).reshape(len(b), -1).all(axis=1)) + t0
-            raise InputError(
-                f"frames {', '.join(map(str, bad[:5]))}{' ...' if len(bad) > 5 else ''} hold NaN or "
-                "infinite values; replace them or choose other frames with --frames"
-            )
-        lo = min(lo, float(b.min()))
-        hi = max(hi, float(b.max()))
-        w0 = t0
-        if resampler is not None:
-            w0, b = resampler.push(t0, b)
-        mean += b.sum(axis=0, dtype=np.float64)
-        if len(b):
-            if stats is not None:
-                stats.add(w0, b)
-            movie.write(w0, b)
-        bar.update(1)
+    pool, pending = None, []
+    if stats is not None and resampler is None and int(workers) > 1:
+        from concurrent.futures import ThreadPoolExecutor
+
+        pool = ThreadPoolExecutor(max_workers=1)  # one thread: the blocks reach the statistics in order
+    try:
+        for t0 in range(0, nt, block):
+            raw = np.asarray(data[t0 : t0 + block])
+            if weight is not None:  # cell field: only good, in-field recorded pixels
+                b = preprocess.bin_weighted(raw, factor, weight, coverage)
+            else:
+                b = preprocess.bin_frames(raw, factor) if factor > 1 else raw.astype(np.float32)
+            if not np.isfinite(b).all():
+                bad = np.flatnonzero(~np.isfinite(b).reshape(len(b), -1).all(axis=1)) + t0
+                raise InputError(
+                    f"frames {', '.join(map(str, bad[:5]))}{' ...' if len(bad) > 5 else ''} hold NaN or "
+                    "infinite values; replace them or choose other frames with --frames"
+                )
+            lo = min(lo, float(b.min()))
+            hi = max(hi, float(b.max()))
+            w0 = t0
+            if resampler is not None:
+                w0, b = resampler.push(t0, b)
+            mean += b.sum(axis=0, dtype=np.float64)
+            if len(b):
+                if pool is not None:  # b is this block's own array: nothing changes it later
+                    pending.append(pool.submit(stats.add, w0, b))
+                elif stats is not None:
+                    stats.add(w0, b)
+                movie.write(w0, b)
+            bar.update(1)
+        for f in pending:
+            f.result()
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=True, cancel_futures=True)
     if hi - lo <= 0:
         raise InputError(f"the movie is flat: every pixel of every frame is {lo:g}; there are no waves to measure")
     return (mean / movie.shape[0]).astype(np.float32)
+
+
+def in_threads(fn, items, workers: int) -> list:
+    """[fn(item) for item in items], on `workers` threads when more than one
+    (for work in numpy and scipy.ndimage, which release the GIL; results in order)."""
+    items = list(items)
+    if int(workers) <= 1 or len(items) <= 1:
+        return [fn(item) for item in items]
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=int(workers)) as pool:
+        return list(pool.map(fn, items))
 
 
 def _clean(*, sigma_px: float, options: AnalysisOptions, movie: _Movie, mean_b: np.ndarray, factor: int,

@@ -80,9 +80,26 @@ def _texture(frame: np.ndarray) -> np.ndarray:
     return img - ndi.gaussian_filter(img, TEXTURE_SIGMA_PX, truncate=3.0)
 
 
+# recorded types whose values float32 holds exactly: binned as read (the kernel sums in float64)
+_EXACT_IN_FLOAT32 = (np.uint8, np.int8, np.uint16, np.int16, np.float32)
+
+
 def _frames(data, idx, eb: int) -> np.ndarray:
-    raw = np.asarray(data[np.asarray(idx)], dtype=np.float32)
+    raw = data[np.asarray(idx)]
+    if eb > 1 and raw.dtype in _EXACT_IN_FLOAT32:
+        raw = np.asarray(raw)
+        raw.flags.writeable = False  # the binning pass's compiled variant (memory-mapped frames)
+        return preprocess.bin_frames(raw, eb)
+    raw = np.asarray(raw, dtype=np.float32)
     return preprocess.bin_frames(raw, eb) if eb > 1 else raw
+
+
+def _median_frames(frames: np.ndarray) -> np.ndarray:
+    """np.median(frames, axis=0) of a (t, y, x) stack, computed with each
+    pixel's values side by side in memory (the same values, several times faster)."""
+    n = frames.shape[0]
+    by_pixel = np.ascontiguousarray(frames.reshape(n, -1).T)
+    return np.median(by_pixel, axis=1, overwrite_input=True).reshape(frames.shape[1:])
 
 
 def _vertex(cm: float, c0: float, cp: float) -> float:
@@ -168,8 +185,8 @@ def estimate_coarse_drift(data, *, block: int = 32, stride: int | None = None) -
     first = _Matcher(sample[0], max_shift)
     back = np.stack([ndi.shift(s, -first(s, highpass=False)[0], order=1, mode="nearest") for s in sample])
     power = float(np.mean(np.sum(sample.astype(np.float64) ** 2, axis=(1, 2))))
-    static = float(np.sum(np.median(sample, axis=0).astype(np.float64) ** 2)) / power if power > 0 else 0.0
-    reference = np.median(back, axis=0)
+    static = float(np.sum(_median_frames(sample).astype(np.float64) ** 2)) / power if power > 0 else 0.0
+    reference = _median_frames(back)
     match = _Matcher(reference, max_shift)
     shifts = np.full((nt, 2), np.nan)
     score = np.full(nt, np.nan)

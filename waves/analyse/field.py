@@ -25,14 +25,22 @@ class FieldPlan:
     factor: int
 
 
+def scan(data, *, pixel_size_um: float) -> preprocess.BadPixels:
+    """Saturated, dead and speck pixels of the recording (independent of the
+    analysis grid, so it can run beside the drift estimate and the first look)."""
+    return preprocess.scan_bad_pixels(data, speck_radius_px=max(2.0, preprocess.cellfield.SPECK_RADIUS_UM / pixel_size_um))
+
+
 def plan(data, *, factor: int, cell_mask: np.ndarray | None, pixel_size_um: float,
-         real_frames: np.ndarray | None = None) -> FieldPlan:
-    """Scan for saturated and dead pixels and set up the weighted binning.
+         real_frames: np.ndarray | None = None, bad: preprocess.BadPixels | None = None) -> FieldPlan:
+    """Scan for saturated and dead pixels (unless `bad`, the result of `scan`,
+    is given) and set up the weighted binning.
     `real_frames`: (grid frames,) bool, False for interpolated frames (the
     statistics' noise estimate leaves them out); None: all as recorded."""
     ny, nx = (int(v) for v in data.shape[1:])
     user = None if cell_mask is None else preprocess.user_cell_mask(cell_mask, (ny, nx))
-    bad = preprocess.scan_bad_pixels(data, speck_radius_px=max(2.0, preprocess.cellfield.SPECK_RADIUS_UM / pixel_size_um))
+    if bad is None:
+        bad = scan(data, pixel_size_um=pixel_size_um)
     if user is not None:  # the user's mask says where cells are; specks are the user's to mark
         bad = preprocess.BadPixels(saturated=bad.saturated, dead=bad.dead, specks=np.zeros_like(bad.specks),
                                    full_scale=bad.full_scale, n_frames_scanned=bad.n_frames_scanned)

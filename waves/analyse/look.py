@@ -8,6 +8,7 @@ import scipy.ndimage
 from waves import preprocess
 from waves.analyse.clean import _Movie
 from waves.measure.period import spectral_period
+from waves.preprocess.binning import bin_frames_in_order
 
 LOOK_PAD = 4  # zero-padding of the look's spectra: radial bins of a quarter of the field's frequency step
 LOOK_FRAMES = 24  # frames the look averages (12 left a recording with every degradation at once without a peak)
@@ -94,14 +95,16 @@ def _dominant_wavelength_px(sample: np.ndarray) -> float | None:
 # --------------------------------------------------------------------------- passes 1 and 2
 
 
-def _wavelength_look(data, *, shifts_px: np.ndarray | None = None, lag_frames: int = 0) -> float | None:
+def _wavelength_look(data, *, shifts_px: np.ndarray | None = None, lag_frames: int = 0,
+                     compiled: bool = True) -> float | None:
     """Dominant wavelength (recorded pixels) of LOOK_FRAMES frames spread over the movie.
 
     With `shifts_px` ((t, 2) recorded px, waves.analyse.drift_auto) the frames
     are put back first and the border strip the shift leaves empty is cut off;
     with `lag_frames` > 0 the look is on differences frame t + lag minus frame
     t, so that static (and slowly moving) cell texture drops out and the
-    waves, which change within a quarter period, dominate."""
+    waves, which change within a quarter period, dominate.  `compiled`=False
+    bins with numpy (the same values), for a thread beside the compiled kernels'."""
     nt, ny, nx = data.shape
     lag = int(min(max(lag_frames, 0), nt - 1))
     idx = np.linspace(0, nt - 1 - lag, min(nt - lag, LOOK_FRAMES)).astype(int)
@@ -124,7 +127,7 @@ def _wavelength_look(data, *, shifts_px: np.ndarray | None = None, lag_frames: i
     else:
         sample = sample - sample.mean(axis=0, keepdims=True)
     if look_bin > 1:
-        sample = preprocess.bin_frames(sample, look_bin)
+        sample = (preprocess.bin_frames if compiled else bin_frames_in_order)(sample, look_bin)
     # cell texture (grains a few pixels across, streaming or drifting) must not outshine the waves:
     # a Gaussian of LOOK_SMOOTH_PX keeps 84 % of a 60-px wave's power and 11 % of a 17-px
     # grain pattern's (exp(-(2 pi sigma / lambda)^2)); waves shorter than ~15 px need no

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import pathlib
 import time
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -90,11 +91,24 @@ def analyse_movie(
 
     t0 = time.perf_counter()
     block = max(1, min(64, int(16e6 // max(ny * nx * 4, 1))))
+    look_lag = drift_auto.look_lag_frames(options.period_band_min, dt_min, nt)
+    # the first look on the frames as recorded and the bad-pixel scan need neither the drift
+    # estimate nor the grid: with two workers they run on a second thread beside the estimate
+    # (numpy, scipy.ndimage and skimage release the GIL; nothing compiled runs in parallel
+    # there); only numpy arrays and memory maps are read from two threads at once
+    scan = look_ahead = None
+    if int(options.workers) > 1 and isinstance(data, np.ndarray):
+        pool = ThreadPoolExecutor(max_workers=1)
+        look_ahead = pool.submit(_wavelength_look, data, lag_frames=look_lag, compiled=False)
+        scan = pool.submit(cell_field.scan, data, pixel_size_um=cal.pixel_size_um)
+        pool.shutdown(wait=False)
     # stage drift, on every run; the first look sees frames put back and differenced
     drift_plan = drift_auto.plan(data, options.register)
     timings["drift_estimate_s"] = time.perf_counter() - t0
-    lam = _wavelength_look(data, shifts_px=drift_plan.look_shifts_px,
-                           lag_frames=drift_auto.look_lag_frames(options.period_band_min, dt_min, nt))
+    if look_ahead is not None and drift_plan.look_shifts_px is None:
+        lam = look_ahead.result()
+    else:
+        lam = _wavelength_look(data, shifts_px=drift_plan.look_shifts_px, lag_frames=look_lag)
     if options.analysis_bin is not None:
         factor = int(options.analysis_bin)
     else:
@@ -108,7 +122,8 @@ def analyse_movie(
     nyb, nxb = ny // factor, nx // factor
     t_field = time.perf_counter()
     fplan = cell_field.plan(data, factor=factor, cell_mask=cell_mask, pixel_size_um=cal.pixel_size_um,
-                            real_frames=None if tb is None else tb.recorded & ~tb.excluded)
+                            real_frames=None if tb is None else tb.recorded & ~tb.excluded,
+                            bad=None if scan is None else scan.result())
     drift = drift_auto.on_grid(drift_plan, factor=factor, shape_b=(nyb, nxb), frame_interval_min=dt_min,
                                sigma_px=sigma_px)
     warnings += drift.warnings
@@ -122,7 +137,7 @@ def analyse_movie(
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, resampler=resampler,
-                           weight=fplan.weight, coverage=fplan.coverage, stats=fplan.stats)
+                           weight=fplan.weight, coverage=fplan.coverage, stats=fplan.stats, workers=int(options.workers))
         t_field = time.perf_counter()
         cells = cell_field.find(fplan, mean_b, pixel_size_um=px_um,
                                 wavelength_px=lam / factor if lam is not None else None)
@@ -132,7 +147,7 @@ def analyse_movie(
             t_bright = time.perf_counter()
             bright = brightness_pass.estimate(
                 movie, mean_b, block=block, slow_frames=options.period_band_min[1] / dt_min, cell_mask=cells.mask,
-                lag_frames=drift_auto.look_lag_frames(options.period_band_min, dt_min, nt))
+                lag_frames=look_lag, workers=int(options.workers))
             timings["brightness_s"] = time.perf_counter() - t_bright
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
@@ -239,7 +254,8 @@ def analyse_movie(
             valid=valid_phase,
             pad_frames=pad,
         )
-        _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor)
+        _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor,
+                                workers=int(options.workers))
         amplitude_units = "counts"
         if float(mean_b.max()) > 0:  # fractional modulation: the signal floor must not follow the illumination
             dish = preprocess.dish_mask(mean_b)

@@ -158,6 +158,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         # no data: the border a drift correction leaves, edge pixels the streaming-texture removal
         # zeroed (amplitude exactly 0); given to the nearest territory, never measured
         fill=in_field & (~covered | (amp == 0)),
+        workers=int(options.workers),
     )
     cs = without_hole_echoes(cs, holey, margin_px=margin_px, merge_px=merge_px, wl_px=wl_px, min_hole_px=small)
     cs = without_tiny_territories(cs, wl_px=wl_px)

@@ -223,8 +223,13 @@ def activation_times(phase: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 @numba.njit(cache=True, nogil=True, parallel=True)
 def _fit_kernel(times, counts, radius, max_dt, min_points, out_speed, out_dir):
     ny, nx, m = times.shape
+    side = 2 * radius + 1
     for r in numba.prange(ny):
+        # per neighbour, how many of its arrivals lie before the current wave's: the waves of a
+        # pixel come in time order, so these only grow (what a binary search would find afresh)
+        ahead = np.empty(side * side, dtype=np.int64)
         for c in range(nx):
+            ahead[:] = 0
             for k in range(counts[r, c]):
                 t0 = times[r, c, k]
                 # normal equations of T = a + b dx + c dy (dx along col, dy along row)
@@ -246,19 +251,16 @@ def _fit_kernel(times, counts, radius, max_dt, min_points, out_speed, out_dir):
                         cc = c + dc
                         if cc < 0 or cc >= nx:
                             continue
-                        # arrivals are sorted: binary search for the closest
+                        # arrivals are sorted: the first one not before t0 and the one before it
                         n_rc = counts[rr, cc]
                         best = 1e30
                         tb = 0.0
                         if n_rc > 0:
-                            lo = 0
-                            hi = n_rc
-                            while lo < hi:
-                                mid = (lo + hi) // 2
-                                if times[rr, cc, mid] < t0:
-                                    lo = mid + 1
-                                else:
-                                    hi = mid
+                            q = (dr + radius) * side + dc + radius
+                            lo = ahead[q]
+                            while lo < n_rc and times[rr, cc, lo] < t0:
+                                lo += 1
+                            ahead[q] = lo
                             for j in (lo - 1, lo):
                                 if 0 <= j < n_rc:
                                     d = abs(times[rr, cc, j] - t0)

@@ -73,20 +73,18 @@ def upstream_targets(direction_rad: np.ndarray, valid: np.ndarray) -> np.ndarray
     # upstream unit vector in (row, col): propagation is (-sin a, cos a)
     up_r = np.sin(d)
     up_c = -np.cos(d)
-    rr, cc = np.mgrid[0:ny, 0:nx]
     best = np.full((ny, nx), _MIN_COS)
-    target = (rr * nx + cc).astype(np.int64)
-    own = target.copy()
+    own = np.arange(ny * nx, dtype=np.int64).reshape(ny, nx)
+    target = own.copy()
+    vp = np.zeros((ny + 2, nx + 2), dtype=bool)  # v with a border of invalid pixels
+    vp[1:-1, 1:-1] = v
     for dr, dc in _NEIGHBOURS:
         norm = np.hypot(dr, dc)
         score = (up_r * dr + up_c * dc) / norm
-        r2, c2 = rr + dr, cc + dc
-        inside = (r2 >= 0) & (r2 < ny) & (c2 >= 0) & (c2 < nx)
-        ok = np.zeros((ny, nx), dtype=bool)
-        ok[inside] = v[r2[inside], c2[inside]]
+        ok = vp[1 + dr : 1 + dr + ny, 1 + dc : 1 + dc + nx]  # the neighbour (r + dr, c + dc) is valid
         better = v & ok & (score > best)
-        best = np.where(better, score, best)
-        target = np.where(better, r2 * nx + c2, target)
+        np.copyto(best, score, where=better)
+        np.copyto(target, own + (dr * nx + dc), where=better)
     return np.where(v, target, own).ravel()
 
 
@@ -192,10 +190,11 @@ def fill_gaps(labels: np.ndarray, fill: np.ndarray) -> np.ndarray:
     import scipy.ndimage
 
     lab = np.asarray(labels)
-    if not (lab > 0).any():
-        return lab.copy()
-    _, (ir, ic) = scipy.ndimage.distance_transform_edt(lab == 0, return_indices=True)
-    out = lab.copy()
     f = np.asarray(fill, dtype=bool) & (lab == 0)
+    if not (lab > 0).any() or not f.any():  # nothing to fill from, or nothing to fill
+        return lab.copy()
+    # the nearest labelled pixel of every pixel (the feature transform; no distances needed)
+    ir, ic = scipy.ndimage.distance_transform_edt(lab == 0, return_distances=False, return_indices=True)
+    out = lab.copy()
     out[f] = lab[ir[f], ic[f]]
     return out

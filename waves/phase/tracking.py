@@ -52,7 +52,6 @@ from dataclasses import dataclass
 
 import numba
 import numpy as np
-import scipy.optimize
 import scipy.sparse
 import scipy.sparse.csgraph
 import scipy.spatial
@@ -553,6 +552,8 @@ def _link(
     nt, nd = len(tr), len(dr)
     graph = scipy.sparse.coo_matrix((np.ones(len(i), np.int8), (i, nt + j)), shape=(nt + nd,) * 2)
     _, label = scipy.sparse.csgraph.connected_components(graph, directed=False)
+    from scipy.optimize import linear_sum_assignment  # here: scipy.optimize costs ~0.15 s to import
+
     links = []
     pair_label = label[i]
     order = np.argsort(pair_label, kind="stable")
@@ -564,7 +565,7 @@ def _link(
         forbidden = 1.0 + len(pd) * (float(pd.max()) + 1.0)
         cost = np.full((len(ui), len(uj)), forbidden)
         cost[ri, rj] = pd
-        rows, cols = scipy.optimize.linear_sum_assignment(cost)
+        rows, cols = linear_sum_assignment(cost)
         for a, b in zip(rows.tolist(), cols.tolist(), strict=True):
             if cost[a, b] < forbidden:
                 links.append((int(ui[a]), int(uj[b])))

@@ -59,6 +59,27 @@ def bin_frames_numpy(frames, factor: int) -> np.ndarray:
     return blocks.mean(axis=(nd - 3, nd - 1), dtype=np.float64).astype(np.float32)
 
 
+def bin_frames_in_order(frames, factor: int) -> np.ndarray:
+    """`bin_frames` in numpy with the kernel's arithmetic in the kernel's order
+    (the same float32 values), for threads other than the one that runs the
+    compiled parallel kernels (not every numba threading layer takes
+    launches from two threads at once).  (t, y, x) or (y, x), factor > 1."""
+    arr = np.asarray(frames)
+    f = int(factor)
+    src = arr[None] if arr.ndim == 2 else arr
+    n, ny, nx = src.shape
+    by, bx = ny // f, nx // f
+    blocks = src[:, : by * f, : bx * f].reshape(n, by, f, bx, f)
+    row = np.zeros((n, by, bx))
+    for di in range(f):
+        acc = np.zeros((n, by, bx))
+        for dj in range(f):
+            acc += blocks[:, :, di, :, dj]
+        row += acc
+    out = (row * (1.0 / (f * f))).astype(np.float32)
+    return out[0] if arr.ndim == 2 else out
+
+
 @njit(cache=True, nogil=True, parallel=True)
 def _bin_kernel(block, factor, out):  # pragma: no cover - compiled
     """out[t, i, j] = mean of block[t, i*f:(i+1)*f, j*f:(j+1)*f], summed in float64."""
