@@ -30,7 +30,7 @@ from waves.phase.analytic import (
     phase_and_amplitude,
     spectral_weights,
 )
-from waves.phase.charge import plaquette_charge
+from waves.phase.charge import plaquette_charge, singularity_offsets
 from waves.preprocess.timebase import runs
 
 
@@ -45,6 +45,7 @@ class _Maps:
     fit_speed: np.ndarray
     interval_cv: np.ndarray  # spread of the intervals between waves (std / mean)
     charges: list  # of int64 (n, 4) arrays: frame, row, col, charge
+    charge_offsets: list = field(default_factory=list)  # float32 (n, 2) per charges array: (row, col) in [0, 1]
     arrivals: list = field(default_factory=list)  # (first row, (rows, x, m) arrival times) per strip
     snr: np.ndarray | None = None  # (y, x) mean amplitude / what white noise of the pixel's own level gives
 
@@ -132,6 +133,8 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         t_i, r_i, c_i = _sparse_nonzero(q[:, : r1 - r0])
         if t_i.size:
             maps.charges.append(np.stack([t_i, r_i + r0, c_i, q[t_i, r_i, c_i].astype(np.int64)], axis=1))
+            # where in the plaquette the singularity sits (the core's sub-pixel position)
+            maps.charge_offsets.append(singularity_offsets(phase, amp, t_i, r_i + inner.start, c_i))
         del phase, amp, q
         bar.update(1)
     bar.close()
@@ -233,25 +236,34 @@ def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int, worker
     in_threads(one, range(maps.speed.shape[0]), workers)
 
 
-def _detect_and_track(charges, *, signal, n_frames, period_frames, frame_ok=None):
+def _detect_and_track(charges, *, signal, n_frames, period_frames, frame_ok=None, offsets=None):
     """Cores per frame from the collected plaquette charges (only plaquettes
     whose top-left pixel carries a signal, and with `frame_ok`, only in valid
-    frames; tracks may then bridge the invalid runs), then tracks."""
+    frames; tracks may then bridge the invalid runs), then tracks.  `offsets`:
+    the charges' sub-plaquette positions (strips' charge_offsets), or None
+    (plaquette centres)."""
     ny, nx = signal.shape
     allq = np.concatenate(charges, axis=0) if charges else np.zeros((0, 4), dtype=np.int64)
-    allq = allq[signal[allq[:, 1], allq[:, 2]]]
+    off = (np.concatenate(offsets, axis=0) if offsets and len(offsets) == len(charges)
+           else np.full((len(allq), 2), 0.5, np.float32))
+    keep = signal[allq[:, 1], allq[:, 2]]
+    allq, off = allq[keep], off[keep]
     max_gap = 2
     if frame_ok is not None and not np.all(frame_ok):
-        allq = allq[frame_ok[allq[:, 0]]]
+        keep = frame_ok[allq[:, 0]]
+        allq, off = allq[keep], off[keep]
         max_gap += max(b - a for a, b in runs(~np.asarray(frame_ok, dtype=bool)))
     tables = []
     block = 64
     for f0 in range(0, n_frames, block):
         f1 = min(n_frames, f0 + block)
-        sel = allq[(allq[:, 0] >= f0) & (allq[:, 0] < f1)]
+        in_block = (allq[:, 0] >= f0) & (allq[:, 0] < f1)
+        sel = allq[in_block]
         q = np.zeros((f1 - f0, ny - 1, nx - 1), dtype=np.int8)
+        where = np.full((f1 - f0, ny - 1, nx - 1, 2), 0.5, dtype=np.float32)
         if len(sel):
             q[sel[:, 0] - f0, sel[:, 1], sel[:, 2]] = sel[:, 3].astype(np.int8)
-        tables.append(tracking.detect_cores_stack(q, first_frame=f0))
+            where[sel[:, 0] - f0, sel[:, 1], sel[:, 2]] = off[in_block]
+        tables.append(tracking.detect_cores_stack(q, first_frame=f0, offsets=where))
     detections = tracking.concat_tables(tables)
     return tracking.track_cores(detections, max_step_px=max(2.0, 0.1 * period_frames), max_gap_frames=max_gap)

@@ -122,7 +122,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     filled &= sig_ok
     # cores are found where directions are (small holes bridged), not within the edge's margin
     tracks = _detect_and_track(maps.charges, signal=plaquettes_inside(filled & walkable), n_frames=usable,
-                               period_frames=period0, frame_ok=frame_ok)
+                               period_frames=period0, frame_ok=frame_ok, offsets=maps.charge_offsets)
     persistent = tracking.persistent_tracks(
         tracks, min_lifetime_frames=max(1, int(round(options.persistent_periods * period0)))
     )

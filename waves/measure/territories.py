@@ -113,6 +113,41 @@ def _outward_fraction(direction, valid, r0, c0, radius):
     return float(np.mean(dot > 0))
 
 
+def _ray_centre(direction, valid, r0, c0, radius, min_alignment: float = 0.9):
+    """The point the propagation directions on a ring round (r0, c0) radiate
+    from, to a fraction of a pixel: the least-squares intersection of the
+    rays, p = (sum P_i)^-1 sum P_i x_i with P_i the projection across ray i.
+    Walk end points sit on whole pixels, and where several end points tie
+    their mean is off by half a pixel.  Only for a target-like candidate
+    (the rays on the ring agree with the radius: mean cosine >=
+    min_alignment) and a point within `radius` of the start; otherwise
+    (r0, c0) unchanged (a spiral's rays wind round its core)."""
+    ny, nx = direction.shape
+    rr, cc = np.mgrid[0:ny, 0:nx]
+    dr, dc = rr - r0, cc - c0
+    dist = np.hypot(dr, dc)
+    ring = valid & np.isfinite(direction) & (dist >= 0.5 * radius) & (dist <= 1.5 * radius)
+    if ring.sum() < 6:
+        return r0, c0
+    a = direction[ring]
+    ur, uc = -np.sin(a), np.cos(a)  # unit propagation (row, col)
+    if np.mean((ur * dr[ring] + uc * dc[ring]) / dist[ring]) < min_alignment:
+        return r0, c0
+    # P = I - u u^T summed, and P x summed
+    prr, pcc, prc = np.sum(1 - ur * ur), np.sum(1 - uc * uc), np.sum(-ur * uc)
+    xr, xc = rr[ring].astype(np.float64), cc[ring].astype(np.float64)
+    br = np.sum((1 - ur * ur) * xr - ur * uc * xc)
+    bc = np.sum(-ur * uc * xr + (1 - uc * uc) * xc)
+    det = prr * pcc - prc * prc
+    if not det > 1e-9 * max(prr * pcc, 1e-300):
+        return r0, c0
+    r1 = (pcc * br - prc * bc) / det
+    c1 = (prr * bc - prc * br) / det
+    if not np.hypot(r1 - r0, c1 - c0) <= radius:
+        return r0, c0
+    return float(r1), float(c1)
+
+
 def find_territories(
     direction_rad: np.ndarray,
     valid: np.ndarray,
@@ -164,6 +199,7 @@ def find_territories(
         out = _outward_fraction(d, v, r0, c0, merge_radius_px)
         if out < min_outward:
             continue
+        r0, c0 = _ray_centre(d, v, r0, c0, merge_radius_px)
         keep[k] = len(rows) + 1
         rows.append(r0)
         cols.append(c0)

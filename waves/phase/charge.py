@@ -20,7 +20,7 @@ import numpy as np
 
 from waves.errors import WavesError
 
-__all__ = ["plaquette_charge", "plaquette_charge_numpy", "wrap", "wrap_scalar"]
+__all__ = ["plaquette_charge", "plaquette_charge_numpy", "singularity_offsets", "wrap", "wrap_scalar"]
 
 TWO_PI = 2.0 * math.pi
 
@@ -100,3 +100,43 @@ def plaquette_charge(phase: np.ndarray) -> np.ndarray:
     out = np.empty((p.shape[0], p.shape[1] - 1, p.shape[2] - 1), dtype=np.int8)
     _charge_kernel(p, out)
     return out[0] if squeeze else out
+
+
+def singularity_offsets(phase: np.ndarray, amplitude: np.ndarray | None, t: np.ndarray, r: np.ndarray,
+                        c: np.ndarray, *, iterations: int = 8) -> np.ndarray:
+    """(n, 2) float32 (row, col) position of the phase singularity inside each
+    plaquette (t, r, c) (top-left corner (r, c); offsets in [0, 1]): the zero of
+    the bilinear interpolant of z = amplitude * exp(i phase) over its four
+    corners (unit amplitude without `amplitude`), by Newton steps from the
+    plaquette's centre; where Newton leaves the square the centre (0.5, 0.5)
+    stays (common practice, no source)."""
+    t, r, c = (np.asarray(v, dtype=np.int64) for v in (t, r, c))
+    n = t.size
+    out = np.full((n, 2), 0.5, dtype=np.float64)
+    if n == 0:
+        return out.astype(np.float32)
+
+    def corner(dr, dc):
+        z = np.exp(1j * phase[t, r + dr, c + dc].astype(np.float64))
+        return z * amplitude[t, r + dr, c + dc] if amplitude is not None else z
+
+    z00, z01, z10, z11 = corner(0, 0), corner(0, 1), corner(1, 0), corner(1, 1)
+    y = np.full(n, 0.5)
+    x = np.full(n, 0.5)
+    for _ in range(iterations):
+        f = (1 - y) * (1 - x) * z00 + (1 - y) * x * z01 + y * (1 - x) * z10 + y * x * z11
+        fy = -(1 - x) * z00 - x * z01 + (1 - x) * z10 + x * z11
+        fx = -(1 - y) * z00 + (1 - y) * z01 - y * z10 + y * z11
+        # solve [Re fy, Re fx; Im fy, Im fx] [dy, dx] = -[Re f, Im f]
+        a, b, cc, d = fy.real, fx.real, fy.imag, fx.imag
+        det = a * d - b * cc
+        ok = np.abs(det) > 1e-12
+        det = np.where(ok, det, 1.0)
+        dy = np.where(ok, -(d * f.real - b * f.imag) / det, 0.0)
+        dx = np.where(ok, -(-cc * f.real + a * f.imag) / det, 0.0)
+        y, x = y + dy, x + dx
+    inside = (y >= 0) & (y <= 1) & (x >= 0) & (x <= 1) & np.isfinite(y) & np.isfinite(x)
+    out[inside, 0] = y[inside]
+    out[inside, 1] = x[inside]
+    return out.astype(np.float32)
+

@@ -360,6 +360,7 @@ def detect_cores_stack(
     cancel_radius_px: float = 2.0,
     first_frame: int = 0,
     origin_px: tuple[int, int] = (0, 0),
+    offsets: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
     """Cores in every frame of a block of charge maps.
 
@@ -387,6 +388,10 @@ def detect_cores_stack(
     origin_px :
         (row, col) of the block's top-left phase pixel in the whole field,
         added to the positions of cores found in a tile.
+    offsets :
+        Optional (t, y, x, 2) position of each plaquette's singularity inside
+        it, (row, col) in [0, 1] (`waves.phase.charge.singularity_offsets`);
+        without it a charge sits at the plaquette's centre.
 
     Returns
     -------
@@ -419,9 +424,13 @@ def detect_cores_stack(
     stops = np.concatenate([bounds, [len(t)]])
     parts = []
     for a, b in zip(starts.tolist(), stops.tolist(), strict=True):
-        rows, cols, charges, counts = _suppress_frame(
-            r[a:b] + 0.5, c[a:b] + 0.5, qq[a:b], cancel_r, merge_r
-        )
+        if offsets is None:
+            pr, pc = r[a:b] + 0.5, c[a:b] + 0.5
+        else:
+            ta = t[a]
+            pr = r[a:b] + offsets[ta, r[a:b], c[a:b], 0].astype(np.float64)
+            pc = c[a:b] + offsets[ta, r[a:b], c[a:b], 1].astype(np.float64)
+        rows, cols, charges, counts = _suppress_frame(pr, pc, qq[a:b], cancel_r, merge_r)
         parts.append(
             _table(
                 CORE_COLUMNS,
