@@ -8,6 +8,7 @@ import numpy as np
 import scipy.ndimage
 
 from waves.measure.centres import without_centres
+from waves.measure.territories import radial_alignment
 
 
 def without_hole_echoes(cs, holey, *, margin_px, merge_px, wl_px, min_hole_px):
@@ -65,21 +66,6 @@ def without_tiny_territories(cs, *, wl_px):
 # Measured on tests/test_centre_rules.py's fields: sources on the edge 0.997-0.998; plane
 # waves 0.62-0.80; sources 300 um beyond an edge 0.93, 280 um beyond a corner 0.97-0.98
 EDGE_ALIGNMENT = 0.98
-
-
-def radial_alignment(direction: np.ndarray, valid: np.ndarray, r0: float, c0: float, radius: float) -> float:
-    """Mean cosine between the propagation direction (rad, as waves.measure.fused:
-    (row, col) step (-sin a, cos a)) and the outward radius, over the valid pixels
-    of a ring [radius / 2, 3 radius / 2] round (r0, c0); NaN with fewer than 6."""
-    ny, nx = direction.shape
-    rr, cc = np.mgrid[0:ny, 0:nx]
-    dr, dc = rr - r0, cc - c0
-    dist = np.hypot(dr, dc)
-    ring = valid & np.isfinite(direction) & (dist >= 0.5 * radius) & (dist <= 1.5 * radius)
-    if ring.sum() < 6:
-        return float("nan")
-    a = direction[ring]
-    return float(np.mean((-np.sin(a) * dr[ring] + np.cos(a) * dc[ring]) / dist[ring]))
 
 
 def without_edge_entries(cs, direction, valid, *, wl_px, edge_px):

@@ -33,7 +33,7 @@ from scipy.spatial import cKDTree
 
 from waves.errors import WavesError
 
-__all__ = ["Territories", "upstream_targets", "find_territories", "fill_gaps"]
+__all__ = ["Territories", "upstream_targets", "find_territories", "fill_gaps", "radial_alignment", "ring_directions"]
 
 _NEIGHBOURS = np.array(
     [(-1, -1), (-1, 0), (-1, 1), (0, -1), (0, 1), (1, -1), (1, 0), (1, 1)], dtype=np.int64
@@ -100,17 +100,39 @@ def _walk_ends(nxt: np.ndarray) -> np.ndarray:
     return ends
 
 
-def _outward_fraction(direction, valid, r0, c0, radius):
+def ring_directions(direction, valid, r0, c0, radius):
+    """Over the valid pixels of a ring [radius / 2, 3 radius / 2] round (r0, c0):
+    (rows, cols, unit propagation (row, col) = (-sin a, cos a), offsets from
+    the centre and their lengths), or None with fewer than 6 pixels."""
     ny, nx = direction.shape
     rr, cc = np.mgrid[0:ny, 0:nx]
     dist = np.hypot(rr - r0, cc - c0)
     ring = valid & np.isfinite(direction) & (dist >= 0.5 * radius) & (dist <= 1.5 * radius)
     if ring.sum() < 6:
-        return 0.0
-    # propagation in (row, col) is (-sin a, cos a); outward is (r - r0, c - c0)
+        return None
     a = direction[ring]
-    dot = -np.sin(a) * (rr[ring] - r0) + np.cos(a) * (cc[ring] - c0)
-    return float(np.mean(dot > 0))
+    r, c = rr[ring].astype(np.float64), cc[ring].astype(np.float64)
+    return r, c, -np.sin(a), np.cos(a), r - r0, c - c0, dist[ring]
+
+
+def _outward_fraction(direction, valid, r0, c0, radius):
+    ring = ring_directions(direction, valid, r0, c0, radius)
+    if ring is None:
+        return 0.0
+    _, _, ur, uc, dr, dc, _ = ring
+    return float(np.mean(ur * dr + uc * dc > 0))  # propagation against the outward offset
+
+
+def radial_alignment(direction, valid, r0, c0, radius) -> float:
+    """Mean cosine between the propagation direction (rad, as waves.measure.fused:
+    (row, col) step (-sin a, cos a)) and the outward radius, over the ring of
+    `ring_directions`; NaN with fewer than 6 pixels (1 for waves spreading
+    radially from (r0, c0))."""
+    ring = ring_directions(direction, valid, r0, c0, radius)
+    if ring is None:
+        return float("nan")
+    _, _, ur, uc, dr, dc, dist = ring
+    return float(np.mean((ur * dr + uc * dc) / dist))
 
 
 def _ray_centre(direction, valid, r0, c0, radius, min_alignment: float = 0.9):
@@ -119,23 +141,16 @@ def _ray_centre(direction, valid, r0, c0, radius, min_alignment: float = 0.9):
     rays, p = (sum P_i)^-1 sum P_i x_i with P_i the projection across ray i.
     Walk end points sit on whole pixels, and where several end points tie
     their mean is off by half a pixel.  Only for a target-like candidate
-    (the rays on the ring agree with the radius: mean cosine >=
-    min_alignment) and a point within `radius` of the start; otherwise
-    (r0, c0) unchanged (a spiral's rays wind round its core)."""
-    ny, nx = direction.shape
-    rr, cc = np.mgrid[0:ny, 0:nx]
-    dr, dc = rr - r0, cc - c0
-    dist = np.hypot(dr, dc)
-    ring = valid & np.isfinite(direction) & (dist >= 0.5 * radius) & (dist <= 1.5 * radius)
-    if ring.sum() < 6:
+    (radial_alignment >= min_alignment) and a point within `radius` of the
+    start; otherwise (r0, c0) unchanged (a spiral's rays wind round its core)."""
+    ring = ring_directions(direction, valid, r0, c0, radius)
+    if ring is None:
         return r0, c0
-    a = direction[ring]
-    ur, uc = -np.sin(a), np.cos(a)  # unit propagation (row, col)
-    if np.mean((ur * dr[ring] + uc * dc[ring]) / dist[ring]) < min_alignment:
+    xr, xc, ur, uc, dr, dc, dist = ring
+    if np.mean((ur * dr + uc * dc) / dist) < min_alignment:
         return r0, c0
     # P = I - u u^T summed, and P x summed
     prr, pcc, prc = np.sum(1 - ur * ur), np.sum(1 - uc * uc), np.sum(-ur * uc)
-    xr, xc = rr[ring].astype(np.float64), cc[ring].astype(np.float64)
     br = np.sum((1 - ur * ur) * xr - ur * uc * xc)
     bc = np.sum(-ur * uc * xr + (1 - uc * uc) * xc)
     det = prr * pcc - prc * prc
