@@ -96,7 +96,7 @@ def significance_map(movie: _Movie, band: tuple[float, float], *, level: float =
         rr = rows[i : i + rows_per_chunk]
         x = np.stack([movie.rows(r, r + 1)[:, 0, o::stride] for r in rr], axis=1)
         last = peak_test(x, band, level=level, detrend_degree=detrend_degree)
-        flat = np.asarray(x).std(axis=0) == 0  # no data (outside the cell field): not tested
+        flat = ~np.isfinite(last.frequency)  # no variance (outside the cell field): not tested
         s = np.repeat(last.significant & ~flat, stride, axis=1)[:, :nx]
         q = np.repeat(np.where(flat, np.nan, last.ratio).astype(np.float32), stride, axis=1)[:, :nx]
         for j, r in enumerate(rr):

@@ -166,7 +166,7 @@ def analyse_movie(
         bar.close()
         # the texture step's background keeps periods up to the band's top; the measurements look
         # no further than twice the dominant period (the pass band below), nor need it to
-        period_pre, clear_pre = _dominant_period_frames(movie, passband_user)
+        period_pre, _ = _dominant_period_frames(movie, passband_user)
         texture_band = options.period_band_min
         if period_pre is not None:
             texture_band = (texture_band[0], max(texture_band[0] * 1.5, min(texture_band[1], 2.0 * period_pre * dt_min)))
@@ -184,7 +184,7 @@ def analyse_movie(
                 "waves cannot be told from noise, nor measured")
         # (with the measurement's own per-pixel detrend, when it has one)
         found = detect.detect(movie, passband_user, field_mask=cells.mask, detrend_degree=strips.DETREND_DEGREE)
-        period0, clear_frac = (_dominant_period_frames(movie, passband_user, significant=found.significant)
+        period0, _ = (_dominant_period_frames(movie, passband_user, significant=found.significant)
                                if found.detected else (None, found.fraction))
         timings["detection_s"] = time.perf_counter() - t0
         if period0 is None:

@@ -132,11 +132,10 @@ def peak_test(x: np.ndarray, band: tuple[float, float], *, level: float = DEFAUL
     first (as the measurement does, waves.phase.analytic)."""
     x = np.asarray(x, dtype=np.float64)
     nt = x.shape[0]
-    if detrend_degree is not None:
-        t = np.linspace(-1.0, 1.0, nt)
-        v = np.polynomial.legendre.legvander(t, int(detrend_degree))
-        coef, *_ = np.linalg.lstsq(v, x.reshape(nt, -1), rcond=None)
-        x = x - (v @ coef).reshape(x.shape)
+    if detrend_degree is not None:  # the measurement's own detrend
+        from waves.phase.analytic import _detrend_poly
+
+        x = _detrend_poly(x.copy(), int(detrend_degree))
     x = x - x.mean(axis=0)
     win = np.hanning(nt)
     spec = np.abs(scipy.fft.rfft(x * win.reshape((nt,) + (1,) * (x.ndim - 1)), axis=0)) ** 2
