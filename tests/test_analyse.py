@@ -135,7 +135,7 @@ def test_tiled_equals_whole():
     m = _movie([S.SpiralSource(800.0, 900.0, PERIOD)], shape=(120, 100, 100), style=DarkfieldStyle(noise=0.02))
     big = _analyse(m, memory_budget_mb=2000)
     small = _analyse(m, memory_budget_mb=1)  # forces many small tiles
-    for key in ("period_min", "front_speed_um_per_min", "amplitude", "front_speed_activation_fit_um_per_min"):
+    for key in ("period_min", "front_speed_um_per_min", "amplitude", "front_speed_phase_velocity_um_per_min"):
         np.testing.assert_allclose(small.maps[key], big.maps[key], rtol=1e-5, atol=1e-5, equal_nan=True)
     assert small.summary["spiral_cores"] == big.summary["spiral_cores"]
     for key, col in big.tables["dispersion"].items():

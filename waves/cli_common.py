@@ -164,7 +164,8 @@ def summary_lines(summary: dict) -> list[str]:
                      + (f" (of {asked[0]:g}-{asked[1]:g} min asked)" if asked else ""))
     spread = [c["position_spread_um"] for c in conf.get("spiral_cores") or [] if c.get("position_spread_um") is not None]
     lines += [
-        f"front speed     {fmt('front_speed_um_per_min', 'um/min')}",
+        f"front speed     {fmt('front_speed_um_per_min', 'um/min')}, per-wave fits",
+        f"  phase velocity {fmt('front_speed_phase_velocity_um_per_min', 'um/min')}",
         f"wavelength      {fmt('wavelength_um', 'um')}",
         f"spiral cores    {len(summary.get('spiral_cores') or [])} persistent"
         + (f" (position spread {min(spread):.3g}-{max(spread):.3g} um)" if len(spread) > 1 else

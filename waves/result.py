@@ -32,7 +32,8 @@ __all__ = [
 MAP_FILES = {
     "period_min": "period_min.tif",
     "front_speed_um_per_min": "front_speed_um_per_min.tif",
-    "front_speed_activation_fit_um_per_min": "front_speed_fit_um_per_min.tif",
+    "front_speed_phase_velocity_um_per_min": "front_speed_phase_velocity_um_per_min.tif",
+    "plane_wave_like": "plane_wave_like.tif",
     "wavelength_um": "wavelength_um.tif",
     "direction_deg": "direction_deg.tif",
     "territory_labels": "territory_labels.tif",
@@ -56,6 +57,7 @@ TABLE_FILES = {
     "territories_timecourse": "territories_timecourse.csv",
     "drift": "drift.csv",
     "rejected_centres": "rejected_centres.csv",
+    "speed_by_distance": "speed_by_distance.csv",
 }
 
 

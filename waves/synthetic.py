@@ -91,6 +91,7 @@ from waves.synthetic_sources import (
     core_position,
     firing_times_min,
     rotation_of_charge,
+    speed_of,
 )
 from waves.units import Calibration
 
@@ -166,6 +167,7 @@ class SourceTruth:
     rotation           'clockwise'/'counterclockwise' for spirals, None otherwise.
     wavelength_um      speed_um_per_min * period_min.
     wavelength_end_um  speed_um_per_min * period_end_min.
+    speed_um_per_min   front speed of this source's waves.
     period_timecourse  ((t_min, period_min), ...) emitted at the source, per frame.
     """
 
@@ -183,6 +185,7 @@ class SourceTruth:
     wavelength_um: float
     wavelength_end_um: float
     period_timecourse: tuple[tuple[float, float], ...]
+    speed_um_per_min: float | None = None
 
     def to_dict(self) -> dict:
         """JSON-friendly record; the period time course is given per frame when
@@ -204,6 +207,7 @@ class SourceTruth:
             "rotation": self.rotation,
             "wavelength_um": self.wavelength_um,
             "wavelength_end_um": self.wavelength_end_um,
+            "speed_um_per_min": self.speed_um_per_min,
             "period_timecourse": [{"t_min": t, "period_min": p} for t, p in course],
         }
 
@@ -363,8 +367,9 @@ def _make_truth(
             period_end_min=law.t1,
             drift_end_min=law.d if drifting else None,
             phase0=s.phase0,
-            wavelength_um=speed_um_per_min * s.period_min,
-            wavelength_end_um=speed_um_per_min * law.t1,
+            wavelength_um=speed_of(s, speed_um_per_min) * s.period_min,
+            wavelength_end_um=speed_of(s, speed_um_per_min) * law.t1,
+            speed_um_per_min=speed_of(s, speed_um_per_min),
             period_timecourse=course,
         )
         if isinstance(s, PlanarSource):

@@ -17,6 +17,7 @@ from waves.synthetic_sources import (
     _law_of,
     core_position,
     moves,
+    travel_delay_min,
 )
 
 _TWO_PI = 2.0 * math.pi
@@ -122,7 +123,7 @@ class _Evaluator:
                     self.angular[k] = s.charge * np.arctan2(-dy, dx)
                     self.angular_index[i] = k
                     k += 1
-            self.delay_min[i] = dist / speed_um_per_min
+            self.delay_min[i] = travel_delay_min(s, dist, speed_um_per_min)
         self.phase0 = np.array([s.phase0 for s in sources], dtype=np.float64)
         self.t0 = np.array([law.t0 for law in self.laws], dtype=np.float64)
         self.t1 = np.array([law.t1 for law in self.laws], dtype=np.float64)

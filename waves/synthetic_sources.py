@@ -83,6 +83,16 @@ class TargetSource:
                     `jitter_seed`, clipped to +/- 0.4 period_min so the order
                     is kept); the firing at t = 0 and those before are
                     regular.  `firing_times_min` gives the times.
+    speed_um_per_min  if given, this source's waves travel at this speed (a
+                    territory of its own speed: another strain, another cell
+                    density); None: the field's speed.  Each pixel still takes
+                    the latest wave to reach it (first arrival: the eikonal
+                    construction with a speed per territory).
+    curvature_um2_per_min  if positive, D of the eikonal relation c = c0 - D kappa
+                    (Tyson & Keener 1988): a ring of radius r (curvature 1/r)
+                    moves at c0 - D / r, so rings near the pacemaker are slower;
+                    the arrival time is the exact integral of dr / (c0 - D / r)
+                    from r_m = 2 D / c0 on (inside r_m the rings move at c0 / 2).
     """
 
     x_um: float
@@ -94,6 +104,8 @@ class TargetSource:
     drift_end_min: float | None = None
     jitter_min: float = 0.0
     jitter_seed: int = 0
+    speed_um_per_min: float | None = None
+    curvature_um2_per_min: float = 0.0
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "x_um", _finite("TargetSource.x_um", self.x_um))
@@ -107,6 +119,13 @@ class TargetSource:
         if isinstance(self.jitter_seed, bool) or not isinstance(self.jitter_seed, (int, np.integer)):
             raise WavesError(f"TargetSource.jitter_seed must be a whole number, got {self.jitter_seed!r}")
         object.__setattr__(self, "jitter_min", j)
+        d = _finite("TargetSource.curvature_um2_per_min", self.curvature_um2_per_min)
+        if d < 0.0:
+            raise WavesError(f"TargetSource.curvature_um2_per_min must be >= 0, got {self.curvature_um2_per_min!r}")
+        object.__setattr__(self, "curvature_um2_per_min", d)
+        if self.speed_um_per_min is not None:
+            object.__setattr__(self, "speed_um_per_min", _positive(
+                "TargetSource.speed_um_per_min", self.speed_um_per_min, "micrometres per minute, e.g. 350"))
 
 
 @dataclass(frozen=True)
@@ -274,6 +293,28 @@ def firing_times_min(src: Source, last_frame_min: float) -> np.ndarray:
     dev = np.clip(rng.normal(0.0, src.jitter_min, n), -0.4 * src.period_min, 0.4 * src.period_min)
     regular[1:] += dev
     return regular
+
+
+def speed_of(src: Source, field_speed_um_per_min: float) -> float:
+    """The speed of `src`'s waves: its own when it has one, else the field's."""
+    own = getattr(src, "speed_um_per_min", None)
+    return float(field_speed_um_per_min if own is None else own)
+
+
+def travel_delay_min(src: Source, dist_um: np.ndarray, field_speed_um_per_min: float) -> np.ndarray:
+    """Minutes a wave of `src` takes to reach distance `dist_um`: dist / c, or
+    with a curvature coefficient D the integral of dr / (c - D / r) (see
+    TargetSource): T = 4 D / c^2 + (r - r_m) / c + D / c^2 ln((c r - D) / (c r_m - D))
+    for r >= r_m = 2 D / c, and 2 r / c inside (derived here: dT/dr = 1 / (c - D / r))."""
+    c = speed_of(src, field_speed_um_per_min)
+    d = float(getattr(src, "curvature_um2_per_min", 0.0) or 0.0)
+    r = np.asarray(dist_um, dtype=np.float64)
+    if d <= 0.0:
+        return r / c
+    rm = 2.0 * d / c
+    far = np.maximum(r, rm)
+    outer = 4.0 * d / c**2 + (far - rm) / c + d / c**2 * np.log((c * far - d) / (c * rm - d))
+    return np.where(r >= rm, outer, 2.0 * r / c)
 
 
 def moves(src: Source) -> bool:

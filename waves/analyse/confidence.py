@@ -26,16 +26,20 @@ def block_px(*, wavelength_px: float, sigma_px: float) -> float:
 
 
 def headline(*, period_w: np.ndarray, speed_w: np.ndarray, block: float, dt_min: float,
-             to_um_per_min: float, px_um: float) -> dict:
+             to_um_per_min: float, px_um: float, speed_key: str = "front_speed_um_per_min",
+             more: dict | None = None) -> dict:
     """period_w, speed_w: (windows, y, x) in frames and px per frame, NaN where a
-    window does not measure (the summary's masks applied)."""
+    window does not measure (the summary's masks applied); the wavelength is
+    their product.  `speed_key` names speed_w's interval; `more`: further
+    {key: (maps, scale)} to give intervals for (another speed estimate)."""
     shape = period_w.shape[1:]
     labels, n_blocks = block_labels(shape, block)
     wl_w = period_w * speed_w
     out: dict = {"method": METHOD, "level": LEVEL, "block_um": float(block * px_um),
                  "windows": int(period_w.shape[0]), "blocks": n_blocks}
-    for key, maps, scale in (("period_min", period_w, dt_min), ("front_speed_um_per_min", speed_w, to_um_per_min),
-                             ("wavelength_um", wl_w, px_um)):
+    todo = [("period_min", period_w, dt_min), (speed_key, speed_w, to_um_per_min), ("wavelength_um", wl_w, px_um)]
+    todo += [(k, m, sc) for k, (m, sc) in (more or {}).items()]
+    for key, maps, scale in todo:
         cells = cell_medians(maps, labels, n_blocks)
         ci = two_way_interval(cells)
         out[key] = None if ci is None else {

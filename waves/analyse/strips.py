@@ -42,11 +42,12 @@ class _Maps:
     direction: np.ndarray
     coherence: np.ndarray
     omega: np.ndarray  # phase advance per frame
-    fit_speed: np.ndarray
+    fit_speed: np.ndarray  # (y, x): median over every wave of its local plane fit (per-wave front speed)
     interval_cv: np.ndarray  # spread of the intervals between waves (std / mean)
     charges: list  # of int64 (n, 4) arrays: frame, row, col, charge
     charge_offsets: list = field(default_factory=list)  # float32 (n, 2) per charges array: (row, col) in [0, 1]
     arrivals: list = field(default_factory=list)  # (first row, (rows, x, m) arrival times) per strip
+    fit_speed_w: np.ndarray | None = None  # (n_windows, y, x): the same over the waves arriving in each window
     snr: np.ndarray | None = None  # (y, x) mean amplitude / what white noise of the pixel's own level gives
 
 
@@ -89,6 +90,7 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         fit_speed=np.full((ny, nx), np.nan, np.float32),
         interval_cv=np.full((ny, nx), np.nan, np.float32),
         charges=[],
+        fit_speed_w=np.full((len(windows), ny, nx), np.nan, np.float32),
     )
     noise = np.full((ny, nx), np.nan, np.float32)
     starts = list(range(0, ny, rows_per_strip))
@@ -124,6 +126,10 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         with warnings_module.catch_warnings():
             warnings_module.simplefilter("ignore", RuntimeWarning)  # all-NaN pixels give NaN
             maps.fit_speed[r0:r1] = np.nanmedian(sp[inner], axis=2)
+            t_in = times[inner]
+            for i, (w0, w1) in enumerate(windows):  # each window: the waves that arrive inside it
+                maps.fit_speed_w[i, r0:r1] = np.nanmedian(
+                    np.where((t_in >= w0) & (t_in < w1), sp[inner], np.nan), axis=2)
             gaps = intervals_outside(times[inner], valid) if partial else np.diff(times[inner], axis=2)
             maps.interval_cv[r0:r1] = np.nanstd(gaps, axis=2) / np.nanmean(gaps, axis=2)
         maps.arrivals.append((r0, times[inner].copy()))  # for the centres' own waves
@@ -230,8 +236,9 @@ def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int, worker
         with np.errstate(invalid="ignore"):
             ok = np.abs(f - 1.0) <= MAX_SMOOTHING_CORRECTION
         maps.speed[w] = np.where(ok, maps.speed[w] / np.where(ok, f, 1.0), np.nan)
-        if w == 0:  # arrival times come from the same smoothed phase: the same bias
-            maps.fit_speed[:] = np.where(ok, maps.fit_speed / np.where(ok, f, 1.0), np.nan)
+        # arrival times come from the same smoothed phase: the same bias
+        fit = maps.fit_speed if w == 0 else maps.fit_speed_w[w - 1]
+        fit[:] = np.where(ok, fit / np.where(ok, f, 1.0), np.nan)
 
     in_threads(one, range(maps.speed.shape[0]), workers)
 

@@ -10,7 +10,7 @@ import numpy as np
 import scipy.ndimage
 
 from waves import __version__, preprocess
-from waves.analyse import confidence
+from waves.analyse import confidence, speed_regions
 from waves.analyse.centre_rules import (
     without_edge_entries,
     without_hole_echoes,
@@ -109,6 +109,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
             arr = getattr(maps, name)
             arr[:, ~(measured if name in ("period", "speed") else walkable)] = np.nan
         maps.fit_speed[~measured] = np.nan
+        if maps.fit_speed_w is not None:
+            maps.fit_speed_w[:, ~measured] = np.nan
         maps.interval_cv[~measured] = np.nan
     amp = np.nan_to_num(maps.amplitude, nan=0.0)
     # small low-amplitude holes (spiral cores oscillate weakly) stay inside the signal
@@ -164,12 +166,19 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     cs = without_tiny_territories(cs, wl_px=wl_px)
     cs = without_edge_entries(cs, maps.direction[0], valid_field, wl_px=wl_px, edge_px=merge_px)
     speed_ok &= kernel_in_one_territory(cs.labels, sigma_px=sigma_px)
+    for lab_w in cs.window_labels:  # a collision line that sweeps: out wherever it passed
+        speed_ok &= kernel_in_one_territory(lab_w, sigma_px=sigma_px)
+    # a source is the apex of a conical arrival surface: the kernel averages its two sides
+    kernel_px = speed_regions.kernel_margin_px(sigma_px)
+    speed_ok &= speed_regions.away_from_points((nyb, nxb), cs.centres["row"], cs.centres["col"], kernel_px)
 
     to_um_per_min = px_b / dt_min
     period_map = np.where(valid, maps.period[0] * dt_min, np.nan).astype(np.float32)
-    speed_map = np.where(speed_ok, maps.speed[0] * to_um_per_min, np.nan).astype(np.float32)
-    wavelength_map = (speed_map * period_map).astype(np.float32)
-    fit_map = np.where(speed_ok, maps.fit_speed * to_um_per_min, np.nan).astype(np.float32)
+    phase_speed_map = np.where(speed_ok, maps.speed[0] * to_um_per_min, np.nan).astype(np.float32)
+    wavelength_map = (phase_speed_map * period_map).astype(np.float32)
+    # the primary front speed: each wave's own local plane fit, the median over waves
+    speed_map = np.where(speed_ok, maps.fit_speed * to_um_per_min, np.nan).astype(np.float32)
+    plane = speed_regions.plane_like(maps.direction[0], wavelength_px=wl_px)
     direction_map = np.where(speed_ok, np.rad2deg(maps.direction[0]), np.nan).astype(np.float32)
 
     # period time course and dispersion points (per window, per region of a 3 x 3 grid)
@@ -180,6 +189,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
               + np.minimum(np.arange(nxb) * nreg // nxb, nreg - 1)[None, :])
     period_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)  # per window, for the intervals
     speed_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)
+    fit_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)
     for i, (w0, w1) in enumerate(windows):
         t_mid = (trim + 0.5 * (w0 + w1)) * dt_min
         pw = np.where(valid, maps.period[i + 1], np.nan)
@@ -190,8 +200,10 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         ok = (speed_ok & (maps.coherence[i + 1] >= options.min_coherence) & np.isfinite(pw)
               & np.isfinite(maps.speed[i + 1]) & kernel_in_one_territory(cs.window_labels[i], sigma_px=sigma_px))
         speed_w[i] = np.where(ok, maps.speed[i + 1], np.nan)
+        if maps.fit_speed_w is not None:
+            fit_w[i] = np.where(ok, maps.fit_speed_w[i], np.nan)
         for g in range(nreg * nreg):
-            m = ok & (region == g)
+            m = ok & plane & (region == g)  # plane-wave-like fronts only: comparable with a dispersion relation
             if m.sum() < 10:
                 continue
             disp["window"].append(i)
@@ -219,7 +231,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     )
     if not valid.any():
         warnings.append("no pixel carries a signal above the amplitude floor")
-    period_q, speed_q = quartiles(period_map), quartiles(speed_map)
+    period_q, speed_q, phase_q = quartiles(period_map), quartiles(speed_map), quartiles(phase_speed_map)
     if speed_q is None and period_q is not None:
         warnings.append("front speed not measured: no pixel has a steady wave direction away from cores and collisions")
     grid = _grid(cal, factor)
@@ -229,7 +241,16 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     )
     conf = confidence.headline(period_w=period_w, speed_w=speed_w,
                                block=confidence.block_px(wavelength_px=wl_px, sigma_px=sigma_px),
-                               dt_min=dt_min, to_um_per_min=to_um_per_min, px_um=px_b)
+                               dt_min=dt_min, to_um_per_min=to_um_per_min, px_um=px_b,
+                               speed_key="front_speed_phase_velocity_um_per_min",
+                               more={"front_speed_um_per_min": (fit_w, to_um_per_min)})
+    clash = speed_regions.disagreement(speed_q, phase_q, conf, "front_speed_um_per_min",
+                                       "front_speed_phase_velocity_um_per_min")
+    if clash:
+        warnings.append(clash)
+    by_territory, by_distance = speed_regions.territory_speeds(
+        speed_map, cs.labels, centres, grid=grid, bin_um=confidence.block_px(wavelength_px=wl_px, sigma_px=sigma_px)
+        * px_b / 2.0)
     conf["spiral_cores"] = confidence.cores(spiral_cores, tracking.tracks_in_um(
         pers_rec, pixel_size_um=px, frame_interval_s=dt_s))
     conf["centres"] = confidence.territories(centres, terr_course)
@@ -256,7 +277,19 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "unassigned_share": (
             float(np.sum(valid & (cs.labels == 0)) / field_px) if field_px > 0 else None
         ),
-        "front_speed_activation_fit_um_per_min": quartiles(fit_map),
+        "front_speed_method": "per-wave fits: a local plane through each wave's arrival times (Bayly et al. 1998)",
+        "front_speed_phase_velocity_um_per_min": phase_q,
+        "front_speed_by_territory": by_territory,
+        "speed_regions": {
+            "collision_margin_um": kernel_px * px_b,
+            "centre_margin_um": kernel_px * px_b,
+            "core_margin_um": (0.5 * wl_px if np.isfinite(wl_px) else 5.0) * px_b,
+            "edge_margin_um": float(margin_px * px_b),
+            "sweeping_collision_lines": "out wherever a window's collision line passed",
+            "plane_wave_like": f"|front curvature| x wavelength <= {speed_regions.PLANE_KAPPA_WAVELENGTH:g} "
+                               "(dispersion points only)",
+            "plane_wave_like_fraction": float(np.mean(plane[speed_ok])) if speed_ok.any() else None,
+        },
         "cores_per_cm2": density,
         "dominant_period_min": period0 * dt_min,
         "analysis": {
@@ -280,7 +313,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "period_min": period_map,
         "front_speed_um_per_min": speed_map,
         "wavelength_um": wavelength_map,
-        "front_speed_activation_fit_um_per_min": fit_map,
+        "front_speed_phase_velocity_um_per_min": phase_speed_map,
+        "plane_wave_like": (plane & speed_ok).astype(np.uint8),
         "direction_deg": direction_map,
         "territory_labels": cs.labels.astype(np.int32),
         "interval_cv": np.where(valid, maps.interval_cv, np.nan).astype(np.float32),
@@ -311,6 +345,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "centres": centres_tab,
         "rejected_centres": _rejected_table(cs.rejected, factor=factor, px=cal.pixel_size_um),
         "territories_timecourse": terr_course,
+        "speed_by_distance": by_distance,
     }
     stacks = {"territory_labels_windows": cs.window_labels}
     return summary, out_maps, tables, stacks

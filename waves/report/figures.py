@@ -357,12 +357,22 @@ def regularity_map_figure(interval_cv, *, grid: MapGrid) -> Figure:
     return fig
 
 
-def speed_map_figure(speed_um_per_min, direction_deg=None, *, grid: MapGrid, arrows: int = 14) -> Figure:
-    """Front speed per pixel (um/min, 'viridis') with arrows showing the
-    direction of travel (degrees counterclockwise from +x as displayed) on a
-    coarse lattice of about `arrows` x `arrows` points."""
+def speed_map_figure(speed_um_per_min, direction_deg=None, *, grid: MapGrid, arrows: int = 14,
+                     excluded=None) -> Figure:
+    """Front speed per pixel (um/min, 'viridis', colour limits at the 2nd and
+    98th percentiles) with arrows showing the direction of travel (degrees
+    counterclockwise from +x as displayed) on a coarse lattice of about
+    `arrows` x `arrows` points; `excluded` (bool map): pixels with a wave but
+    kept out of the speed statistics, drawn in light grey."""
     fig, ax, im = _scalar_map(speed_um_per_min, grid=grid, cmap=SPEED_CMAP, title="Front speed and direction",
                               label="front speed (um/min)", name="speed")
+    if im is not None and excluded is not None:
+        ex = np.asarray(excluded, dtype=bool) & ~np.isfinite(_as_map(speed_um_per_min, "speed"))
+        if ex.shape == np.shape(speed_um_per_min) and ex.any():
+            ax.imshow(np.ma.masked_where(~ex, np.ones(ex.shape)), cmap=ListedColormap(["#cfcfcf"]),
+                      vmin=0, vmax=1, extent=grid.extent_mm(ex.shape), origin="upper", interpolation="nearest")
+            ax.set_xlabel(ax.get_xlabel() + "\nlight grey: waves kept out of the speed statistics "
+                          "(collision lines, centres, cores, edges)", fontsize=8)
     if im is None or direction_deg is None:
         return fig
     d = _as_map(direction_deg, "direction")

@@ -169,9 +169,12 @@ def write_report(
         figs.append('<p class="note">Speed map: not in this results folder (no front speed was measured).</p>')
     else:
         figs.append(_figure_html(
-            F.speed_map_figure(maps["front_speed_um_per_min"], maps.get("direction_deg"), grid=grid),
-            "speed map", "Front speed (um/min) where the wave direction is steady; arrows: direction of travel; "
-            "grey: not measured (no signal, near cores, collisions)."))
+            F.speed_map_figure(maps["front_speed_um_per_min"], maps.get("direction_deg"), grid=grid,
+                               excluded=np.isfinite(maps["period_min"]) if "period_min" in maps else None),
+            "speed map", "Front speed (um/min) from each wave's local plane fit, median over the waves, where the "
+            "wave direction is steady; arrows: direction of travel; light grey: waves kept out of the speed "
+            "statistics (collision lines, centres, cores, edges; margins in summary.json 'speed_regions'); "
+            "dark: no wave signal."))
     if "interval_cv" in maps:
         figs.append(_figure_html(
             F.regularity_map_figure(maps["interval_cv"], grid=grid), "regularity map",

@@ -123,8 +123,8 @@ def _read_folder(folder: pathlib.Path):
 
 _QUANTITIES = (
     ("period_min", "Wave period", "min"),
-    ("front_speed_um_per_min", "Front speed (phase velocity)", "um/min"),
-    ("front_speed_activation_fit_um_per_min", "Front speed (activation-time fits)", "um/min"),
+    ("front_speed_um_per_min", "Front speed (per-wave fits)", "um/min"),
+    ("front_speed_phase_velocity_um_per_min", "Front speed (phase velocity)", "um/min"),
     ("wavelength_um", "Wavelength", "um"),
 )
 

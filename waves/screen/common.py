@@ -22,14 +22,14 @@ QUARTILE_BLOCKS = (
     "period_min",
     "front_speed_um_per_min",
     "wavelength_um",
-    "front_speed_activation_fit_um_per_min",
+    "front_speed_phase_velocity_um_per_min",
 )
 # metrics compared between groups unless the caller picks others
 DEFAULT_METRICS = (
     "period_min_median",
     "front_speed_um_per_min_median",
     "wavelength_um_median",
-    "front_speed_activation_fit_um_per_min_median",
+    "front_speed_phase_velocity_um_per_min_median",
     "dominant_period_min",
     "n_spiral_cores",
 )
@@ -37,7 +37,7 @@ METRIC_UNITS = {
     "period_min": "min",
     "front_speed_um_per_min": "um/min",
     "wavelength_um": "um",
-    "front_speed_activation_fit_um_per_min": "um/min",
+    "front_speed_phase_velocity_um_per_min": "um/min",
     "dominant_period_min": "min",
     "period_first_window_min": "min",
     "period_last_window_min": "min",
