@@ -161,3 +161,30 @@ def test_front_curvature_of_a_ring_and_a_plane():
     assert np.abs(R.front_curvature(np.full((50, 50), 0.7))).max() < 1e-12
     assert R.plane_like(np.full((50, 50), 0.7), wavelength_px=40.0).all()
     assert not R.plane_like(theta, wavelength_px=40.0)[100, 110]  # 10 px from the centre: 4 rad per wavelength
+
+
+@pytest.mark.slow
+def test_dispersion_points_of_a_simulated_field_follow_the_exact_relation(tmp_path):
+    # a Barkley medium paced every 12 min at the centre of a 15 mm field; every
+    # (window, region) point of dispersion.csv against the plane-wave dispersion
+    # relation of the same discrete model (h = 0.25, the simulator's dt) computed on
+    # a 1-D ring by waves.dispersion (periodic trains: an independent route, no 2-D
+    # field, no analysis), at the point's own period.  Bound 3 % (the issue's).
+    # Achieved: median +0.9 %, worst 1.8 % (the first window, the pacemaker's start-up); the
+    # median bound (1.5 %) fails a 2 % bias.
+    from waves.dispersion import dispersion_curve
+    from waves.models.stimulus import Pacemaker
+    from waves.simulate import simulate
+
+    n = 300
+    run = simulate("barkley", size=(n, n), minutes=200.0, frame_interval_s=30.0, seed=2, initial="rest",
+                   pacemakers=[Pacemaker(n * 25.0, n * 25.0, 12.0)], render="darkfield", progress=False)
+    a = analyse_movie(run.frames, calibration=run.calibration)
+    d = a.tables["dispersion"]
+    assert len(d["window"]) >= 20
+    curve = dispersion_curve("barkley", converge=False, cache_dir=tmp_path)
+    u = curve.in_units(time_scale_s=130.0, length_scale_um=200.0)  # the simulator's scales (waves.models.barkley)
+    exact = np.interp(d["period_min"], u["period_min"], u["speed_um_per_min"])
+    err = d["speed_um_per_min"] / exact - 1
+    assert np.abs(err).max() < 0.03
+    assert abs(np.median(err)) < 0.015

@@ -181,6 +181,14 @@ def summary_lines(summary: dict) -> list[str]:
             f"centre {c['id']:<8d} {c['kind']:<7s} at x {c['x_um']:.0f} um, y {c['y_um']:.0f} um; "
             f"period {per} min; territory {c['territory_area_mm2']:.3g} mm^2{across}"
         )
+    for t in summary.get("front_speed_by_territory") or []:
+        e = t.get("eikonal")
+        if e and t.get("median_um_per_min") is not None:
+            ci = e["plane_wave_speed_ci95"]
+            lines.append(f"  territory {t['centre_id']:<4d} speed {t['median_um_per_min']:.3g} um/min; plane-wave "
+                         f"speed c0 {e['plane_wave_speed_um_per_min']:.3g} um/min ({ci[0]:.3g}-{ci[1]:.3g}), "
+                         f"curvature coefficient D {e['curvature_coefficient_um2_per_min']:.3g} um^2/min"
+                         + ("" if e["constrained"] else " (not constrained)"))
     rejected = summary.get("rejected_centres") or []
     if rejected:
         lines.append(f"left out        {len(rejected)} candidate centre{'s' if len(rejected) > 1 else ''} "

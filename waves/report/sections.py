@@ -223,6 +223,7 @@ def _centres_section(s: Mapping, tables: Mapping, territory_fig: str) -> str:
             extra.append(["field recruited by no centre", 100.0 * float(s["unassigned_share"]), "%"])
         if extra:
             body += _table(["quantity", "value", "unit"], extra, numeric=[False, True, False])
+        body += _territory_speed_table(s)
     else:
         body = "<p>No centres (pacemakers or spirals with their territories) are reported in this analysis.</p>"
     body += territory_fig
@@ -234,6 +235,28 @@ def _centres_section(s: Mapping, tables: Mapping, territory_fig: str) -> str:
             "territory time course", "Area each centre recruits in each time window (colours as in the map); a "
                                      "faster centre takes over its neighbours' territory.")
     return _section("centres", body)
+
+
+def _territory_speed_table(s: Mapping) -> str:
+    """Each territory's front speed: its median, and the eikonal fit c = c0 - D / r
+    against the distance r from its centre (plane-wave speed c0, curvature coefficient D)."""
+    rows = []
+    for t in s.get("front_speed_by_territory") or []:
+        e = t.get("eikonal") or {}
+        ci0, cid = e.get("plane_wave_speed_ci95") or [None, None], e.get("curvature_coefficient_ci95") or [None, None]
+        fit = ("fitted" if e.get("constrained") else "D not constrained") if e else "too few distances"
+        rows.append([t.get("centre_id"), t.get("median_um_per_min"), e.get("plane_wave_speed_um_per_min"),
+                     f"{_fmt(ci0[0])}-{_fmt(ci0[1])}" if e else "-", e.get("curvature_coefficient_um2_per_min"),
+                     f"{_fmt(cid[0])}-{_fmt(cid[1])}" if e else "-",
+                     f"{_fmt(e['r_min_um'])}-{_fmt(e['r_max_um'])}" if e else "-", fit])
+    if not rows:
+        return ""
+    return ("<p>Front speed by territory. Rings near a pacemaker are curved and move slower, c = c0 - D / r "
+            "(eikonal relation, Tyson &amp; Keener 1988): c0 is the plane-wave speed, D the curvature coefficient, "
+            "fitted to the speed against the distance r from the centre (speed_by_distance.csv).</p>"
+            + _table(["centre", "median speed (um/min)", "plane-wave speed c0 (um/min)", "c0 95 % interval",
+                      "D (um\u00b2/min)", "D 95 % interval", "distances fitted (um)", "fit"], rows,
+                     numeric=[True, True, True, False, True, False, False, False]))
 
 
 def _timecourse_section(s: Mapping, tables: Mapping) -> str:
