@@ -18,6 +18,7 @@ from waves.analyse.segments import (
     measure_stretches,
 )
 from waves.measure.fused import pixel_measures
+from waves.measure.medians import nanmedian_last
 from waves.measure.speed import (
     activation_fit_speed,
     activation_times,
@@ -125,11 +126,11 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         sp, _ = activation_fit_speed(times, counts, radius_px=FIT_RADIUS_PX, max_dt_frames=period_frames / 3.0)
         with warnings_module.catch_warnings():
             warnings_module.simplefilter("ignore", RuntimeWarning)  # all-NaN pixels give NaN
-            maps.fit_speed[r0:r1] = np.nanmedian(sp[inner], axis=2)
+            maps.fit_speed[r0:r1] = nanmedian_last(sp[inner])
             t_in = times[inner]
             for i, (w0, w1) in enumerate(windows):  # each window: the waves that arrive inside it
-                maps.fit_speed_w[i, r0:r1] = np.nanmedian(
-                    np.where((t_in >= w0) & (t_in < w1), sp[inner], np.nan), axis=2)
+                maps.fit_speed_w[i, r0:r1] = nanmedian_last(
+                    np.where((t_in >= w0) & (t_in < w1), sp[inner], np.nan))
             gaps = intervals_outside(times[inner], valid) if partial else np.diff(times[inner], axis=2)
             maps.interval_cv[r0:r1] = np.nanstd(gaps, axis=2) / np.nanmean(gaps, axis=2)
         maps.arrivals.append((r0, times[inner].copy()))  # for the centres' own waves

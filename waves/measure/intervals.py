@@ -16,6 +16,8 @@ import warnings
 
 import numpy as np
 
+from waves.measure.medians import nanmedian_last
+
 N_BOOT = 2000
 LEVEL = 0.95
 MIN_CELL_PIXELS = 4  # a cell with fewer measured pixels has no median
@@ -70,7 +72,7 @@ def two_way_interval(cells: np.ndarray, *, n_boot: int = N_BOOT, level: float = 
         v = cells[wi[:, :, None], bi[:, None, :]].reshape(k1 - k0, -1)
         with np.errstate(all="ignore"), warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)  # a draw of empty cells only: NaN
-            stats[k0:k1] = np.nanmedian(v, axis=1)
+            stats[k0:k1] = nanmedian_last(v)
     stats = stats[np.isfinite(stats)]
     if stats.size < n_boot // 2:
         return None
