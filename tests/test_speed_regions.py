@@ -58,7 +58,8 @@ def test_speed_within_3_percent_in_fields_of_many_centres(n, in_phase, noisy):
     a = analyse_movie(rec.data, calibration=rec.calibration)
     s = a.summary
     assert len(s["centres"]) == n
-    for key in ("front_speed_um_per_min", "front_speed_phase_velocity_um_per_min"):
+    for key in ("front_speed_um_per_min", "front_speed_phase_velocity_um_per_min",
+                "front_speed_displacement_um_per_min"):
         assert abs(s[key]["median"] / SPEED - 1) < 0.03, (key, s[key])
     # the margins are stated, in um, tied to the smoothing (3 sigma)
     reg = s["speed_regions"]

@@ -166,6 +166,7 @@ def summary_lines(summary: dict) -> list[str]:
     lines += [
         f"front speed     {fmt('front_speed_um_per_min', 'um/min')}, per-wave fits",
         f"  phase velocity {fmt('front_speed_phase_velocity_um_per_min', 'um/min')}",
+        f"  front displacement {fmt('front_speed_displacement_um_per_min', 'um/min')}",
         f"wavelength      {fmt('wavelength_um', 'um')}",
         f"spiral cores    {len(summary.get('spiral_cores') or [])} persistent"
         + (f" (position spread {min(spread):.3g}-{max(spread):.3g} um)" if len(spread) > 1 else

@@ -33,6 +33,7 @@ MAP_FILES = {
     "period_min": "period_min.tif",
     "front_speed_um_per_min": "front_speed_um_per_min.tif",
     "front_speed_phase_velocity_um_per_min": "front_speed_phase_velocity_um_per_min.tif",
+    "front_speed_displacement_um_per_min": "front_speed_displacement_um_per_min.tif",
     "plane_wave_like": "plane_wave_like.tif",
     "wavelength_um": "wavelength_um.tif",
     "direction_deg": "direction_deg.tif",

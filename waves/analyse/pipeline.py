@@ -136,8 +136,10 @@ def analyse_movie(
     movie = _Movie((nt, nyb, nxb), in_memory=nt * nyb * nxb * 4 <= 0.5 * budget, folder=scratch_dir)
     try:
         bar = _progress(2 * ((nt + block - 1) // block), "reading and cleaning frames", progress)
+        first_half = np.zeros((nyb, nxb), dtype=np.float64)
         mean_b = _bin_pass(data, factor=factor, movie=movie, block=block, bar=bar, resampler=resampler,
-                           weight=fplan.weight, coverage=fplan.coverage, stats=fplan.stats, workers=int(options.workers))
+                           weight=fplan.weight, coverage=fplan.coverage, stats=fplan.stats, workers=int(options.workers),
+                           first_half=first_half)
         t_field = time.perf_counter()
         cells = cell_field.find(fplan, mean_b, pixel_size_um=px_um,
                                 wavelength_px=lam / factor if lam is not None else None)
@@ -151,7 +153,7 @@ def analyse_movie(
             timings["brightness_s"] = time.perf_counter() - t_bright
         _clean(sigma_px=sigma_px, options=options, movie=movie, mean_b=mean_b, factor=factor, block=block,
                bar=bar, workers=int(options.workers), notes=notes, brightness=bright, field_mask=cells.mask,
-               shifts=shifts_b)
+               shifts=shifts_b, first_half=first_half)
         if bright is not None:
             brightness_pass.replace_flicker(movie, bright)
             brightness_block = brightness_pass.report(bright, notes=notes, warnings=warnings)
@@ -253,6 +255,7 @@ def analyse_movie(
             progress=progress,
             valid=valid_phase,
             pad_frames=pad,
+            sigma_px=sigma_px if sigma_px > 0.3 else 0.0,
         )
         _correct_smoothing_bias(maps, sigma_px=sigma_px if sigma_px > 0.3 else 0.0, factor=factor,
                                 workers=int(options.workers))

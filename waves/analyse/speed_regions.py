@@ -163,8 +163,10 @@ def territory_speeds(speed_um: np.ndarray, labels: np.ndarray, centres: list, *,
     return records, table
 
 
-def disagreement(primary: dict | None, second: dict | None, conf: dict, key1: str, key2: str) -> str | None:
-    """A warning when the two speed estimates' 95 % intervals do not overlap."""
+def disagreement(primary: dict | None, second: dict | None, conf: dict, key1: str, key2: str, *,
+                 label: str = "phase velocity") -> str | None:
+    """A warning when the per-wave fits' and a second speed estimate's (`label`)
+    95 % intervals do not overlap."""
     if not primary or not second:
         return None
     a = (conf.get(key1) or {}).get("ci95")
@@ -172,8 +174,8 @@ def disagreement(primary: dict | None, second: dict | None, conf: dict, key1: st
     if not a or not b:
         return None
     if a[1] < b[0] or b[1] < a[0]:
-        return (f"the two front-speed estimates disagree beyond their 95 % intervals: per-wave fits "
-                f"{primary['median']:.3g} um/min ({a[0]:.3g}-{a[1]:.3g}), phase velocity "
+        return (f"two front-speed estimates disagree beyond their 95 % intervals: per-wave fits "
+                f"{primary['median']:.3g} um/min ({a[0]:.3g}-{a[1]:.3g}), {label} "
                 f"{second['median']:.3g} um/min ({b[0]:.3g}-{b[1]:.3g}); fronts may be curved, colliding "
                 f"or changing within a cycle")
     return None

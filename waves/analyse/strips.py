@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import warnings as warnings_module
 from dataclasses import dataclass, field
 
@@ -17,8 +18,9 @@ from waves.analyse.segments import (
     intervals_outside,
     measure_stretches,
 )
+from waves.measure.displacement import DISPLACEMENT_REACH_PX, front_displacement_speed
 from waves.measure.fused import pixel_measures
-from waves.measure.medians import nanmedian_last
+from waves.measure.medians import nanmedian_last, window_medians
 from waves.measure.speed import (
     activation_fit_speed,
     activation_times,
@@ -33,6 +35,11 @@ from waves.phase.analytic import (
 )
 from waves.phase.charge import plaquette_charge, singularity_offsets
 from waves.preprocess.timebase import runs
+
+# smoothing (analysis-grid px) of the field a core's sub-pixel position is read from: below
+# about 1.5 steps no local interpolant of the grid finds the zero to a few hundredths of a step
+# (waves.phase.charge.singularity_offsets)
+CORE_SMOOTH_PX = 1.5
 
 
 @dataclass
@@ -49,6 +56,10 @@ class _Maps:
     charge_offsets: list = field(default_factory=list)  # float32 (n, 2) per charges array: (row, col) in [0, 1]
     arrivals: list = field(default_factory=list)  # (first row, (rows, x, m) arrival times) per strip
     fit_speed_w: np.ndarray | None = None  # (n_windows, y, x): the same over the waves arriving in each window
+    # (y, x) and (n_windows, y, x): each front followed along its normal (waves.measure.displacement)
+    walk_speed: np.ndarray | None = None
+    walk_speed_w: np.ndarray | None = None
+    arrival_dirs: list = field(default_factory=list)  # (first row, (rows, x, m) plane-fit directions) per strip
     snr: np.ndarray | None = None  # (y, x) mean amplitude / what white noise of the pixel's own level gives
 
 
@@ -73,10 +84,13 @@ def _phase(z: np.ndarray, lag: int | None) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, period_frames, lag, workers,
-                    progress, valid=None, pad_frames=0):
+                    progress, valid=None, pad_frames=0, sigma_px=0.0):
     """`valid` (phase frames, bool) or None: with invalid frames, the
     whole-movie measures come from the valid stretches and arrivals inside
-    invalid frames are dropped (waves.analyse.segments)."""
+    invalid frames are dropped (waves.analyse.segments).  `sigma_px`: the
+    cleaning's spatial smoothing (grid px); a core's sub-pixel position is
+    taken on a field smoothed to at least CORE_SMOOTH_PX."""
+    core_sigma = math.sqrt(max(0.0, CORE_SMOOTH_PX ** 2 - float(sigma_px) ** 2))
     nt, ny, nx = movie.shape
     n = len(windows) + 1
     partial = valid is not None and not np.all(valid)
@@ -123,28 +137,29 @@ def _measure_strips(movie: _Movie, *, passband, trim, windows, rows_per_strip, p
         times, counts = activation_times(phase)
         if partial:
             times, counts = drop_invalid_arrivals(times, counts, valid)
-        sp, _ = activation_fit_speed(times, counts, radius_px=FIT_RADIUS_PX, max_dt_frames=period_frames / 3.0)
+        sp, di = activation_fit_speed(times, counts, radius_px=FIT_RADIUS_PX, max_dt_frames=period_frames / 3.0)
         with warnings_module.catch_warnings():
             warnings_module.simplefilter("ignore", RuntimeWarning)  # all-NaN pixels give NaN
             maps.fit_speed[r0:r1] = nanmedian_last(sp[inner])
-            t_in = times[inner]
-            for i, (w0, w1) in enumerate(windows):  # each window: the waves that arrive inside it
-                maps.fit_speed_w[i, r0:r1] = nanmedian_last(
-                    np.where((t_in >= w0) & (t_in < w1), sp[inner], np.nan))
+            if len(windows):  # each window: the waves that arrive inside it
+                maps.fit_speed_w[:, r0:r1] = window_medians(times[inner], sp[inner], windows)
             gaps = intervals_outside(times[inner], valid) if partial else np.diff(times[inner], axis=2)
             maps.interval_cv[r0:r1] = np.nanstd(gaps, axis=2) / np.nanmean(gaps, axis=2)
-        maps.arrivals.append((r0, times[inner].copy()))  # for the centres' own waves
-        del times, counts, sp
+        maps.arrivals.append((r0, times[inner].copy()))  # for the centres' own waves and the walks
+        maps.arrival_dirs.append((r0, di[inner].astype(np.float16)))  # a walk's heading needs no more
+        del times, counts, sp, di
         # charges of the plaquettes whose top-left pixel is an inner pixel
         q = plaquette_charge(phase[:, inner.start : min(inner.stop + 1, a1 - a0)])
         t_i, r_i, c_i = _sparse_nonzero(q[:, : r1 - r0])
         if t_i.size:
             maps.charges.append(np.stack([t_i, r_i + r0, c_i, q[t_i, r_i, c_i].astype(np.int64)], axis=1))
             # where in the plaquette the singularity sits (the core's sub-pixel position)
-            maps.charge_offsets.append(singularity_offsets(phase, amp, t_i, r_i + inner.start, c_i))
+            maps.charge_offsets.append(singularity_offsets(phase, amp, t_i, r_i + inner.start, c_i,
+                                                           extra_sigma_px=core_sigma))
         del phase, amp, q
         bar.update(1)
     bar.close()
+    _walk_speeds(maps, windows, max_dt_frames=period_frames / 3.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         maps.snr = (maps.amplitude / (noise * noise_amplitude_factor(nt + 2 * pad_frames, passband))).astype(np.float32)
     return maps
@@ -240,8 +255,51 @@ def _correct_smoothing_bias(maps: _Maps, *, sigma_px: float, factor: int, worker
         # arrival times come from the same smoothed phase: the same bias
         fit = maps.fit_speed if w == 0 else maps.fit_speed_w[w - 1]
         fit[:] = np.where(ok, fit / np.where(ok, f, 1.0), np.nan)
+        walk = maps.walk_speed if w == 0 else (maps.walk_speed_w[w - 1] if maps.walk_speed_w is not None else None)
+        if walk is not None:  # the walks read the same arrival times over a longer baseline
+            walk[:] = np.where(ok, walk / np.where(ok, f, 1.0), np.nan)
 
     in_threads(one, range(maps.speed.shape[0]), workers)
+
+
+def arrival_field(strips, shape, rows: tuple[int, int] | None = None) -> np.ndarray:
+    """(y, x, m) float32 per-wave values (frames or radians, NaN-padded) from
+    the per-strip arrays; with `rows` (a0, a1) only those rows."""
+    a0, a1 = (0, shape[0]) if rows is None else rows
+    m = max([t.shape[2] for _, t in strips], default=1)
+    out = np.full((a1 - a0, shape[1], m), np.nan, np.float32)
+    for r0, t in strips:
+        lo, hi = max(r0, a0), min(r0 + t.shape[0], a1)
+        if lo < hi:
+            out[lo - a0 : hi - a0, :, : t.shape[2]] = t[lo - r0 : hi - r0]
+    return out
+
+
+WALK_BAND_ROWS = 64  # rows of walks at a time (plus the walk's reach above and below)
+
+
+def _walk_speeds(maps: _Maps, windows, *, max_dt_frames: float) -> None:
+    """Every wave's front followed along its plane fit's normal (the walks
+    cross strips: bands of WALK_BAND_ROWS rows with the walk's reach on either
+    side), the median over the waves at each pixel and over the waves
+    arriving inside each window."""
+    ny, nx = maps.amplitude.shape
+    maps.walk_speed = np.full((ny, nx), np.nan, np.float32)
+    maps.walk_speed_w = np.full((len(windows), ny, nx), np.nan, np.float32) if len(windows) else None
+    for b0 in range(0, ny, WALK_BAND_ROWS):
+        b1 = min(ny, b0 + WALK_BAND_ROWS)
+        a0, a1 = max(0, b0 - DISPLACEMENT_REACH_PX), min(ny, b1 + DISPLACEMENT_REACH_PX)
+        times = arrival_field(maps.arrivals, (ny, nx), rows=(a0, a1))
+        dirs = arrival_field(maps.arrival_dirs, (ny, nx), rows=(a0, a1))
+        counts = np.isfinite(times).sum(axis=2).astype(np.int32)
+        walk = front_displacement_speed(times, counts, dirs, max_dt_frames=max_dt_frames)[b0 - a0 : b1 - a0]
+        t_in = times[b0 - a0 : b1 - a0]
+        with warnings_module.catch_warnings():
+            warnings_module.simplefilter("ignore", RuntimeWarning)
+            maps.walk_speed[b0:b1] = nanmedian_last(walk)
+            if maps.walk_speed_w is not None:
+                maps.walk_speed_w[:, b0:b1] = window_medians(t_in, walk, windows)
+    maps.arrival_dirs = []  # held only for the walks
 
 
 def _detect_and_track(charges, *, signal, n_frames, period_frames, frame_ok=None, offsets=None):

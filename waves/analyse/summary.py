@@ -18,7 +18,7 @@ from waves.analyse.centre_rules import (
 )
 from waves.analyse.options import DISCLAIMER, Analysis, AnalysisOptions
 from waves.analyse.segments import arrivals_by_stretch
-from waves.analyse.strips import _detect_and_track, _Maps
+from waves.analyse.strips import _detect_and_track, _Maps, arrival_field
 from waves.measure.centres import emission_intervals, track_centres
 from waves.measure.period import quartiles
 from waves.measure.significance import fill_holes_smaller_than
@@ -111,6 +111,10 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         maps.fit_speed[~measured] = np.nan
         if maps.fit_speed_w is not None:
             maps.fit_speed_w[:, ~measured] = np.nan
+        if maps.walk_speed is not None:
+            maps.walk_speed[~measured] = np.nan
+        if maps.walk_speed_w is not None:
+            maps.walk_speed_w[:, ~measured] = np.nan
         maps.interval_cv[~measured] = np.nan
     amp = np.nan_to_num(maps.amplitude, nan=0.0)
     # small low-amplitude holes (spiral cores oscillate weakly) stay inside the signal
@@ -178,6 +182,9 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     wavelength_map = (phase_speed_map * period_map).astype(np.float32)
     # the primary front speed: each wave's own local plane fit, the median over waves
     speed_map = np.where(speed_ok, maps.fit_speed * to_um_per_min, np.nan).astype(np.float32)
+    # a third: each front followed along its normal (waves.measure.displacement)
+    walk_map = (np.where(speed_ok, maps.walk_speed * to_um_per_min, np.nan).astype(np.float32)
+                if maps.walk_speed is not None else np.full((nyb, nxb), np.nan, np.float32))
     plane = speed_regions.plane_like(maps.direction[0], wavelength_px=wl_px)
     direction_map = np.where(speed_ok, np.rad2deg(maps.direction[0]), np.nan).astype(np.float32)
 
@@ -190,6 +197,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     period_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)  # per window, for the intervals
     speed_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)
     fit_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)
+    walk_w = np.full((len(windows), nyb, nxb), np.nan, np.float32)
     for i, (w0, w1) in enumerate(windows):
         t_mid = (trim + 0.5 * (w0 + w1)) * dt_min
         pw = np.where(valid, maps.period[i + 1], np.nan)
@@ -202,6 +210,8 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         speed_w[i] = np.where(ok, maps.speed[i + 1], np.nan)
         if maps.fit_speed_w is not None:
             fit_w[i] = np.where(ok, maps.fit_speed_w[i], np.nan)
+        if maps.walk_speed_w is not None:
+            walk_w[i] = np.where(ok, maps.walk_speed_w[i], np.nan)
         for g in range(nreg * nreg):
             m = ok & plane & (region == g)  # plane-wave-like fronts only: comparable with a dispersion relation
             if m.sum() < 10:
@@ -232,6 +242,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     if not valid.any():
         warnings.append("no pixel carries a signal above the amplitude floor")
     period_q, speed_q, phase_q = quartiles(period_map), quartiles(speed_map), quartiles(phase_speed_map)
+    walk_q = quartiles(walk_map)
     if speed_q is None and period_q is not None:
         warnings.append("front speed not measured: no pixel has a steady wave direction away from cores and collisions")
     grid = _grid(cal, factor)
@@ -243,11 +254,13 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
                                block=confidence.block_px(wavelength_px=wl_px, sigma_px=sigma_px),
                                dt_min=dt_min, to_um_per_min=to_um_per_min, px_um=px_b,
                                speed_key="front_speed_phase_velocity_um_per_min",
-                               more={"front_speed_um_per_min": (fit_w, to_um_per_min)})
-    clash = speed_regions.disagreement(speed_q, phase_q, conf, "front_speed_um_per_min",
-                                       "front_speed_phase_velocity_um_per_min")
-    if clash:
-        warnings.append(clash)
+                               more={"front_speed_um_per_min": (fit_w, to_um_per_min),
+                                     "front_speed_displacement_um_per_min": (walk_w, to_um_per_min)})
+    for second, key, label in ((phase_q, "front_speed_phase_velocity_um_per_min", "phase velocity"),
+                               (walk_q, "front_speed_displacement_um_per_min", "front displacement")):
+        clash = speed_regions.disagreement(speed_q, second, conf, "front_speed_um_per_min", key, label=label)
+        if clash:
+            warnings.append(clash)
     by_territory, by_distance = speed_regions.territory_speeds(
         speed_map, cs.labels, centres, grid=grid, bin_um=confidence.block_px(wavelength_px=wl_px, sigma_px=sigma_px)
         * px_b / 2.0)
@@ -279,6 +292,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         ),
         "front_speed_method": "per-wave fits: a local plane through each wave's arrival times (Bayly et al. 1998)",
         "front_speed_phase_velocity_um_per_min": phase_q,
+        "front_speed_displacement_um_per_min": walk_q,
         "front_speed_by_territory": by_territory,
         "speed_regions": {
             "collision_margin_um": kernel_px * px_b,
@@ -314,6 +328,7 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
         "front_speed_um_per_min": speed_map,
         "wavelength_um": wavelength_map,
         "front_speed_phase_velocity_um_per_min": phase_speed_map,
+        "front_speed_displacement_um_per_min": walk_map,
         "plane_wave_like": (plane & speed_ok).astype(np.uint8),
         "direction_deg": direction_map,
         "territory_labels": cs.labels.astype(np.int32),
@@ -351,15 +366,6 @@ def _summarise(maps: _Maps, *, cal, factor, options, period0, passband, trim, la
     return summary, out_maps, tables, stacks
 
 
-def _arrival_times(strips, shape) -> np.ndarray:
-    """(y, x, m) arrival times (frames, NaN-padded) from the per-strip arrays."""
-    m = max([t.shape[2] for _, t in strips], default=1)
-    out = np.full(shape + (m,), np.nan, np.float32)
-    for r0, t in strips:
-        out[r0 : r0 + t.shape[0], :, : t.shape[2]] = t
-    return out
-
-
 def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, spiral_cores, frame_ok=None):
     """summary['centres'], the centres table and the per-window territory
     table, in calibrated units and recorded-image coordinates."""
@@ -376,7 +382,7 @@ def _centre_records(cs, *, maps, valid, windows, trim, factor, cal, merge_px, sp
     field_px = max(float(shared.sum()), 1.0)
     area_mm2 = px_b * px_b * 1e-6
     core_by_track = {c["id"]: c for c in spiral_cores}
-    arrivals = _arrival_times(maps.arrivals, valid.shape)
+    arrivals = arrival_field(maps.arrivals, valid.shape)
 
     def window_min(w, end):
         if w < 0:

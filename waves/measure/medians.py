@@ -21,3 +21,27 @@ def nanmedian_last(a: np.ndarray) -> np.ndarray:
     lo = np.take_along_axis(s, np.maximum((n - 1) // 2, 0)[..., None], axis=-1)[..., 0]
     hi = np.take_along_axis(s, np.minimum(n // 2, s.shape[-1] - 1)[..., None], axis=-1)[..., 0]
     return np.where(n == 0, np.nan, 0.5 * (lo + hi))
+
+
+def window_medians(times: np.ndarray, values: np.ndarray, windows) -> np.ndarray:
+    """(n_windows, y, x) float64: for each window [w0, w1), the NaN-skipping
+    median of `values` (y, x, m) over the waves whose `times` (y, x, m,
+    sorted, NaN-padded at the end) fall inside it; the same numbers as
+    nanmedian_last(np.where((times >= w0) & (times < w1), values, nan)),
+    but only the few waves of each window are gathered."""
+    t = np.asarray(times)
+    v = np.asarray(values)
+    m = t.shape[-1]
+    out = np.full((len(windows),) + t.shape[:-1], np.nan)
+    with np.errstate(invalid="ignore"):
+        for i, (w0, w1) in enumerate(windows):
+            start = np.count_nonzero(t < w0, axis=-1)
+            stop = np.count_nonzero(t < w1, axis=-1)
+            k = int((stop - start).max()) if stop.size else 0
+            if k == 0 or m == 0:
+                continue
+            idx = start[..., None] + np.arange(k)
+            picked = np.take_along_axis(v, np.minimum(idx, m - 1), axis=-1).astype(np.float64)
+            picked[idx >= stop[..., None]] = np.nan
+            out[i] = nanmedian_last(picked)
+    return out

@@ -125,6 +125,7 @@ _QUANTITIES = (
     ("period_min", "Wave period", "min"),
     ("front_speed_um_per_min", "Front speed (per-wave fits)", "um/min"),
     ("front_speed_phase_velocity_um_per_min", "Front speed (phase velocity)", "um/min"),
+    ("front_speed_displacement_um_per_min", "Front speed (front displacement)", "um/min"),
     ("wavelength_um", "Wavelength", "um"),
 )
 

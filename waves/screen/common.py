@@ -23,6 +23,7 @@ QUARTILE_BLOCKS = (
     "front_speed_um_per_min",
     "wavelength_um",
     "front_speed_phase_velocity_um_per_min",
+    "front_speed_displacement_um_per_min",
 )
 # metrics compared between groups unless the caller picks others
 DEFAULT_METRICS = (
@@ -38,6 +39,7 @@ METRIC_UNITS = {
     "front_speed_um_per_min": "um/min",
     "wavelength_um": "um",
     "front_speed_phase_velocity_um_per_min": "um/min",
+    "front_speed_displacement_um_per_min": "um/min",
     "dominant_period_min": "min",
     "period_first_window_min": "min",
     "period_last_window_min": "min",
